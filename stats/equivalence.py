@@ -1,0 +1,85 @@
+"""Practical relevance: a ratio band and two one-sided tests (TOST) on the log scale.
+
+With the band (low, high), equivalence at level alpha holds when the (1 - 2 alpha) CI of
+the ratio lies inside the band (Schuirmann 1987, J. Pharmacokin. Biopharm. 15:657-680;
+the 90% CI inside 0.80-1.25 rule of the WHO and US FDA bioequivalence guidance).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import stats as sps
+
+DEFAULT_BAND = (0.80, 1.25)
+
+#: Class names, in the order the app lists them, each with its plain meaning.
+BAND_CLASSES = {
+    "different": "the CI excludes 1 and reaches outside the band: a difference that may matter",
+    "minor-difference": "the CI excludes 1 but the 90% CI lies inside the band: real but small",
+    "equivalent": "the 90% CI lies inside the band and the CI includes 1: equivalent",
+    "inconclusive": "the CI includes 1 and the 90% CI reaches outside the band: more data needed",
+}
+
+
+def parse_band(text: str) -> tuple[float, float]:
+    """Parse ``LOW,HIGH``; raise ValueError with a clear message if it is not a valid band."""
+    parts = [part.strip() for part in text.split(",")]
+    if len(parts) != 2:
+        raise ValueError(f"band {text!r}: write it as LOW,HIGH, for example 0.80,1.25")
+    try:
+        low, high = float(parts[0]), float(parts[1])
+    except ValueError:
+        raise ValueError(
+            f"band {text!r}: LOW and HIGH must be numbers, for example 0.80,1.25"
+        ) from None
+    check_band(low, high)
+    return low, high
+
+
+def check_band(low: float, high: float) -> None:
+    if not (math.isfinite(low) and math.isfinite(high)) or low <= 0 or high <= 0:
+        raise ValueError(f"band {low},{high}: both bounds must be positive ratios")
+    if low >= high:
+        raise ValueError(f"band {low},{high}: LOW must be below HIGH")
+    if not low < 1 < high:
+        raise ValueError(f"band {low},{high}: the band must contain 1 (no change)")
+
+
+def tost(
+    difference: np.ndarray,
+    standard_error: np.ndarray,
+    df: np.ndarray,
+    band: tuple[float, float] = DEFAULT_BAND,
+    alpha: float = 0.05,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return (p_tost, low bound, high bound of the (1 - 2 alpha) CI of the ratio)."""
+    check_band(*band)
+    log_low, log_high = math.log(band[0]), math.log(band[1])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p_lower = sps.t.sf((difference - log_low) / standard_error, df)
+        p_upper = sps.t.cdf((difference - log_high) / standard_error, df)
+        critical = sps.t.ppf(1 - alpha, df)
+        low = np.exp(difference - critical * standard_error)
+        high = np.exp(difference + critical * standard_error)
+    return np.maximum(p_lower, p_upper), low, high
+
+
+def band_class(
+    ci_low: np.ndarray,
+    ci_high: np.ndarray,
+    tost_low: np.ndarray,
+    tost_high: np.ndarray,
+    band: tuple[float, float] = DEFAULT_BAND,
+) -> np.ndarray:
+    """Classify each comparison (see BAND_CLASSES); empty string where not computable."""
+    excludes_one = (ci_low > 1) | (ci_high < 1)
+    inside = (tost_low >= band[0]) & (tost_high <= band[1])
+    computable = np.isfinite(ci_low) & np.isfinite(ci_high) & np.isfinite(tost_low)
+    classes = np.where(
+        excludes_one,
+        np.where(inside, "minor-difference", "different"),
+        np.where(inside, "equivalent", "inconclusive"),
+    )
+    return np.where(computable, classes, "")

@@ -1,0 +1,163 @@
+"""Join reviews onto comparisons and write them as CSV plus a JSON file of the settings used.
+
+Both files are written atomically (temporary file in the target folder, fsync, os.replace),
+so a reader never sees half a file and a crash leaves either the old file or the new one.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import tempfile
+from collections.abc import Callable
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, BinaryIO
+
+import polars as pl
+
+__all__ = ["SELECTIONS", "join_reviews", "select_rows", "settings_path", "write_export"]
+
+SELECTIONS: tuple[str, ...] = ("flagged", "all")
+
+# Values given to comparisons that have no review row, so exports never show nulls for them.
+_REVIEW_DEFAULTS: dict[str, Any] = {"flagged": False, "note": "", "on_earlier_data": False}
+
+
+def join_reviews(comparisons: pl.DataFrame, reviews: pl.DataFrame) -> pl.DataFrame:
+    """Left-join ``reviews`` onto ``comparisons`` by ``key``, keeping the comparison order.
+
+    Comparisons without a review get flagged=False, note='' and on_earlier_data=False;
+    decision, review_fingerprint and updated_at stay null for them.
+    """
+    for name, frame in (("comparisons", comparisons), ("reviews", reviews)):
+        if "key" not in frame.columns:
+            raise ValueError(f"{name} frame has no 'key' column")
+    clashes = sorted(set(comparisons.columns) & set(reviews.columns) - {"key"})
+    if clashes:
+        # A silent '_right' suffix would put the wrong column under a familiar name.
+        raise ValueError(f"comparisons already have review column(s): {', '.join(clashes)}")
+    if reviews.get_column("key").is_duplicated().any():
+        raise ValueError("reviews frame has duplicate keys")
+    joined = comparisons.join(reviews, on="key", how="left", maintain_order="left")
+    fills = [
+        pl.col(name).fill_null(value) for name, value in _REVIEW_DEFAULTS.items() if name in joined
+    ]
+    return joined.with_columns(fills) if fills else joined
+
+
+def select_rows(joined: pl.DataFrame, which: str = "flagged") -> pl.DataFrame:
+    """Rows to export: ``"flagged"`` keeps flagged rows only, ``"all"`` keeps every row."""
+    if which == "all":
+        return joined
+    if which == "flagged":
+        if "flagged" not in joined.columns:
+            raise ValueError("frame has no 'flagged' column; join the reviews first")
+        return joined.filter(pl.col("flagged"))
+    raise ValueError(f"unknown row selection {which!r}; use one of {', '.join(SELECTIONS)}")
+
+
+def settings_path(csv_path: Path) -> Path:
+    """The sidecar JSON written next to ``csv_path``: ``<csv name>.settings.json``."""
+    csv_path = Path(csv_path)
+    return csv_path.with_name(csv_path.name + ".settings.json")
+
+
+def write_export(
+    frame: pl.DataFrame, path: Path, settings: dict[str, Any], overwrite: bool = False
+) -> Path:
+    """Write ``frame`` to ``path`` as CSV and the settings to ``<path>.settings.json``.
+
+    The JSON holds ``settings`` under the key ``"settings"`` (kept apart so a setting can
+    never collide with the fields added here) plus ``exported_at``, ``rows``, ``columns``
+    and ``csv``. Existing files are only replaced when ``overwrite`` is true.
+    """
+    path = Path(path).expanduser()
+    sidecar = settings_path(path)
+    _reject_nested(frame)
+    if not overwrite:
+        for target in (path, sidecar):
+            if target.exists():
+                raise FileExistsError(
+                    f"{target} already exists; choose another name or allow overwriting"
+                )
+    if path.is_dir():
+        raise IsADirectoryError(f"{path} is a folder; give a file name for the export")
+    meta = {
+        "settings": settings,
+        "exported_at": datetime.now(UTC).isoformat(timespec="seconds"),
+        "rows": frame.height,
+        "columns": frame.columns,
+        "csv": path.name,
+    }
+    # Serialise before touching the disk so bad settings cannot leave a CSV without its JSON.
+    meta_text = json.dumps(
+        meta, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default
+    )
+
+    csv_tmp = _write_temp(path, lambda fh: frame.write_csv(fh))
+    try:
+        json_tmp = _write_temp(sidecar, lambda fh: fh.write(meta_text.encode("utf-8") + b"\n"))
+    except BaseException:
+        _unlink_quietly(csv_tmp)
+        raise
+    try:
+        os.replace(csv_tmp, path)
+        os.replace(json_tmp, sidecar)
+    except BaseException:
+        _unlink_quietly(csv_tmp)
+        _unlink_quietly(json_tmp)
+        raise
+    _fsync_dir(path.parent)
+    return path
+
+
+def _reject_nested(frame: pl.DataFrame) -> None:
+    # CSV has no faithful form for these; refusing beats writing an unreadable cell.
+    for name, dtype in frame.schema.items():
+        if isinstance(dtype, pl.List | pl.Array | pl.Struct | pl.Object):
+            raise ValueError(
+                f"column {name!r} has nested type {dtype}; flatten or drop it before exporting"
+            )
+
+
+def _json_default(value: object) -> object:
+    # Paths and sets are common in settings; anything else unknown is an error, not str().
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    if isinstance(value, set | frozenset):
+        return sorted(value, key=str)
+    raise TypeError(f"setting value {value!r} of type {type(value).__name__} is not JSON-ready")
+
+
+def _write_temp(target: Path, write: Callable[[BinaryIO], object]) -> Path:
+    """Write into a new temporary file beside ``target`` and fsync it; return its path."""
+    # Same folder as the target, so os.replace is a rename within one filesystem.
+    fd, name = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".tmp")
+    tmp = Path(name)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+            fh.flush()
+            os.fsync(fh.fileno())
+    except BaseException:
+        _unlink_quietly(tmp)
+        raise
+    return tmp
+
+
+def _unlink_quietly(path: Path) -> None:
+    with contextlib.suppress(FileNotFoundError):
+        path.unlink()
+
+
+def _fsync_dir(directory: Path) -> None:
+    # Makes the renames themselves durable; directories cannot be opened this way on Windows.
+    if os.name != "posix":
+        return
+    fd = os.open(directory, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)

@@ -1,0 +1,296 @@
+"""Read a wide table and decide which columns group rows and which are outcomes.
+
+Every outcome column becomes two columns in the loaded frame: the numeric value
+(Float64, null where missing) and a Boolean ``censored`` flag for entries written
+like ``<0.5`` (below a detection limit; the value is then the limit itself).
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import polars as pl
+
+#: Entries treated as missing in outcome columns (compared case-insensitively).
+MISSING_WORDS = ("", "na", "n/a", "nan", "null", "none", "-", ".", "missing")
+#: A string column with more distinct values than this is taken for an identifier.
+MAX_GROUP_LEVELS = 50
+#: An integer column with at most this many distinct values is taken for a grouping.
+MAX_INTEGER_GROUP_LEVELS = 6
+#: Share of non-missing entries that must parse as numbers for an outcome column.
+NUMERIC_SHARE = 0.8
+
+CENSORED_SUFFIX = "__censored"
+
+
+class InputError(ValueError):
+    """Bad input: the message is one line that names the file or column and what to do."""
+
+
+@dataclass(frozen=True)
+class Table:
+    """A loaded wide table with its column roles.
+
+    Attributes
+    ----------
+    frame:
+        Grouping columns as Utf8; each outcome as Float64 plus ``<name>__censored``.
+    groupings, outcomes:
+        Column names in file order.
+    path:
+        The file read (None for an in-memory frame).
+    fingerprint:
+        SHA-256 of the file's bytes (of the frame's CSV text for in-memory frames).
+    unparsed:
+        Per outcome, the count of entries that were neither numbers, censored
+        entries nor missing markers and were therefore read as missing.
+    """
+
+    frame: pl.DataFrame
+    groupings: tuple[str, ...]
+    outcomes: tuple[str, ...]
+    path: Path | None
+    fingerprint: str
+    unparsed: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def name(self) -> str:
+        return self.path.name if self.path is not None else "<table>"
+
+    def censored_column(self, outcome: str) -> str:
+        return outcome + CENSORED_SUFFIX
+
+
+def file_fingerprint(path: Path) -> str:
+    digest = hashlib.sha256()
+    with path.open("rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def _sniff_separator(sample: str, suffix: str) -> str:
+    if suffix in (".tsv", ".tab"):
+        return "\t"
+    lines = [line for line in sample.splitlines() if line.strip()][:20]
+    if not lines:
+        return ","
+    try:
+        return csv.Sniffer().sniff("\n".join(lines), delimiters=",\t;|").delimiter
+    except csv.Error:
+        counts = {sep: lines[0].count(sep) for sep in ",\t;|"}
+        best = max(counts, key=lambda sep: counts[sep])
+        return best if counts[best] > 0 else ","
+
+
+def read_raw(path: Path | str) -> pl.DataFrame:
+    """Read CSV/TSV/Parquet; text files are read as strings so censored entries survive."""
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: no such file; check the path and try again")
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder, not a data file; give a CSV, TSV or Parquet file")
+    suffix = path.suffix.lower()
+    if suffix in (".parquet", ".pq"):
+        try:
+            frame = pl.read_parquet(path)
+        except Exception as error:  # polars raises several error types for bad files
+            raise InputError(
+                f"{path}: cannot be read as Parquet ({type(error).__name__}); "
+                "check that the file is complete"
+            ) from None
+        if frame.height == 0:
+            raise InputError(f"{path}: has a header but no data rows; nothing to compare")
+        return frame
+    with path.open("rb") as handle:
+        head = handle.read(64 * 1024)
+    if not head.strip():
+        raise InputError(f"{path}: is empty; give a table with a header row and data rows")
+    if b"\x00" in head:
+        raise InputError(
+            f"{path}: looks like a binary file, not text; give a CSV, TSV or Parquet file"
+        )
+    try:
+        sample = head.decode("utf-8")
+    except UnicodeDecodeError:
+        sample = head.decode("latin-1")
+        encoding = "utf8-lossy"
+    else:
+        encoding = "utf8"
+    separator = _sniff_separator(sample, suffix)
+    try:
+        frame = pl.read_csv(
+            path,
+            separator=separator,
+            infer_schema=False,
+            encoding=encoding,
+            truncate_ragged_lines=False,
+        )
+    except pl.exceptions.NoDataError:
+        raise InputError(
+            f"{path}: is empty; give a table with a header row and data rows"
+        ) from None
+    except Exception as error:
+        first = str(error).strip().splitlines()[0] if str(error).strip() else ""
+        raise InputError(f"{path}: cannot be read as a delimited table ({first[:120]})") from None
+    if frame.height == 0:
+        raise InputError(f"{path}: has a header but no data rows; nothing to compare")
+    frame = frame.rename({name: name.strip() for name in frame.columns})
+    return frame
+
+
+def _parse_outcome(column: pl.Expr) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
+    """Expressions for (value, censored flag, unparsed flag) of a string outcome column."""
+    text = column.cast(pl.Utf8).str.strip_chars()
+    lowered = text.str.to_lowercase()
+    missing = text.is_null() | lowered.is_in(list(MISSING_WORDS))
+    censored = text.str.starts_with("<")
+    number_text = (
+        pl.when(censored).then(text.str.strip_prefix("<").str.strip_chars()).otherwise(text)
+    )
+    value = number_text.cast(pl.Float64, strict=False)
+    value = pl.when(missing).then(None).otherwise(value)
+    value = pl.when(value.is_finite()).then(value).otherwise(None)
+    unparsed = (~missing) & value.is_null()
+    return value, (censored & value.is_not_null()), unparsed
+
+
+def _numeric_share(frame: pl.DataFrame) -> dict[str, float]:
+    exprs = []
+    for name in frame.columns:
+        value, _, unparsed = _parse_outcome(pl.col(name))
+        exprs.append(value.is_not_null().sum().alias(name + "\x00ok"))
+        exprs.append(unparsed.sum().alias(name + "\x00bad"))
+    counts = frame.select(exprs).row(0)
+    shares = {}
+    for index, name in enumerate(frame.columns):
+        ok, bad = counts[2 * index], counts[2 * index + 1]
+        shares[name] = ok / (ok + bad) if ok + bad else 0.0
+    return shares
+
+
+def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
+    """Guess grouping and outcome columns of a raw frame."""
+    groupings: list[str] = []
+    outcomes: list[str] = []
+    string_columns = [n for n, t in frame.schema.items() if t in (pl.Utf8, pl.Categorical)]
+    shares = _numeric_share(frame.select(string_columns)) if string_columns else {}
+    levels = frame.select(pl.all().drop_nulls().n_unique()).row(0, named=True)
+    for name, dtype in frame.schema.items():
+        distinct = levels[name]
+        if name in shares and shares[name] >= NUMERIC_SHARE:
+            text_values = frame[name].drop_nulls().str.strip_chars()
+            integer_like = text_values.str.contains(r"^-?\d+$").all()
+            if integer_like and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
+                groupings.append(name)
+            else:
+                outcomes.append(name)
+        elif name in shares:
+            if 2 <= distinct <= MAX_GROUP_LEVELS and distinct < frame.height:
+                groupings.append(name)
+        elif dtype.is_integer() and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
+            groupings.append(name)
+        elif dtype.is_numeric():
+            outcomes.append(name)
+        elif dtype == pl.Boolean:
+            groupings.append(name)
+    return groupings, outcomes
+
+
+def load_table(
+    path: Path | str | None = None,
+    *,
+    frame: pl.DataFrame | None = None,
+    groupings: list[str] | tuple[str, ...] | None = None,
+    outcomes: list[str] | tuple[str, ...] | None = None,
+) -> Table:
+    """Load a file (or an in-memory raw frame) and resolve column roles.
+
+    Named ``groupings``/``outcomes`` override the guesses; a named column that does not
+    exist raises :class:`InputError`.
+    """
+    if frame is None:
+        if path is None:
+            raise ValueError("give a path or a frame")
+        path = Path(path)
+        raw = read_raw(path)
+        fingerprint = file_fingerprint(path)
+    else:
+        raw = frame
+        fingerprint = hashlib.sha256(frame.write_csv().encode()).hexdigest()
+        path = Path(path) if path is not None else None
+    label = str(path) if path is not None else "table"
+    if raw.height == 0:
+        raise InputError(f"{label}: has a header but no data rows; nothing to compare")
+    for role, names in (("grouping", groupings), ("outcome", outcomes)):
+        for name in names or ():
+            if name not in raw.columns:
+                shown = ", ".join(raw.columns[:12]) + (" …" if raw.width > 12 else "")
+                raise InputError(
+                    f"{label}: no column named {name!r} (asked for as {role}); columns are: {shown}"
+                )
+    guessed_groups, guessed_outcomes = infer_roles(raw)
+    chosen_groups = list(groupings) if groupings else guessed_groups
+    if outcomes:
+        chosen_outcomes = list(outcomes)
+    else:
+        chosen_outcomes = [name for name in guessed_outcomes if name not in chosen_groups]
+    overlap = set(chosen_groups) & set(chosen_outcomes)
+    if overlap:
+        raise InputError(
+            f"{label}: column {sorted(overlap)[0]!r} cannot be both grouping and outcome"
+        )
+    if not chosen_outcomes:
+        raise InputError(
+            f"{label}: no numeric outcome columns found; name them with --outcome COLUMN"
+        )
+    if not chosen_groups:
+        raise InputError(
+            f"{label}: no grouping column found (text or few-level columns); "
+            "name one with --group COLUMN"
+        )
+    columns: list[pl.Expr] = []
+    for name in chosen_groups:
+        columns.append(pl.col(name).cast(pl.Utf8).str.strip_chars().alias(name))
+    unparsed_exprs = []
+    for name in chosen_outcomes:
+        if raw.schema[name].is_numeric():
+            value = pl.col(name).cast(pl.Float64)
+            columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
+            columns.append(pl.lit(False).alias(name + CENSORED_SUFFIX))
+            continue
+        value, censored, unparsed = _parse_outcome(pl.col(name))
+        columns.append(value.alias(name))
+        columns.append(censored.fill_null(False).alias(name + CENSORED_SUFFIX))
+        unparsed_exprs.append(unparsed.sum().alias(name))
+    typed = raw.select(columns)
+    unparsed_counts = raw.select(unparsed_exprs).row(0, named=True) if unparsed_exprs else {}
+    for name in chosen_outcomes:
+        if typed[name].is_null().all():
+            raise InputError(
+                f"{label}: outcome column {name!r} has no numeric values; "
+                "leave it out or fix its entries"
+            )
+        if not (typed[name] > 0).any():
+            raise InputError(
+                f"{label}: outcome column {name!r} has no positive values, so logs are undefined; "
+                "leave it out"
+            )
+    for name in chosen_groups:
+        distinct = typed[name].drop_nulls().n_unique()
+        if distinct < 2:
+            raise InputError(
+                f"{label}: grouping column {name!r} has a single level; "
+                "choose a column with two or more levels"
+            )
+    return Table(
+        frame=typed,
+        groupings=tuple(chosen_groups),
+        outcomes=tuple(chosen_outcomes),
+        path=path,
+        fingerprint=fingerprint,
+        unparsed={k: int(v) for k, v in unparsed_counts.items() if v},
+    )

@@ -1,0 +1,275 @@
+"""Robust cross-checks that need the raw values: bootstrap BCa CI for the ratio of sample
+medians, and the Hodges–Lehmann shift of the logs with its Mann–Whitney CI and p.
+
+Bootstrap BCa: Efron & Tibshirani, An Introduction to the Bootstrap (1993), ch. 14.
+Each group is resampled on its own (two-sample bootstrap). The bootstrap medians of one
+group are drawn once and reused for every comparison the group is part of, which is
+valid because each comparison only needs its two groups resampled independently.
+
+Hodges–Lehmann: the median of all pairwise differences log(y_j) - log(x_i); CI from the
+order statistics of those differences at the normal-approximation critical value of the
+Mann–Whitney statistic (Hollander, Wolfe & Chicken, Nonparametric Statistical Methods,
+3rd ed., sec. 4.3).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+import polars as pl
+from scipy import stats as sps
+
+from .policy import USED
+
+DEFAULT_RESAMPLES = 2000
+DEFAULT_SEED = 20261201
+_BRUTE_FORCE_PAIRS = 4_000_000
+_CHUNK_ELEMENTS = 8_000_000
+
+
+@dataclass(frozen=True)
+class RobustCheck:
+    """Cross-checks of one comparison; NaN with a reason where they cannot be computed."""
+
+    median_ratio: float
+    median_ratio_ci_low: float
+    median_ratio_ci_high: float
+    hl_ratio: float
+    hl_ci_low: float
+    hl_ci_high: float
+    mann_whitney_p: float
+    reason: str = ""
+
+
+NAN_CHECK = RobustCheck(*([math.nan] * 7), reason="too few values")
+
+
+def bootstrap_medians(values: np.ndarray, resamples: int, rng: np.random.Generator) -> np.ndarray:
+    """Medians of ``resamples`` bootstrap resamples of ``values`` (chunked for memory)."""
+    n = values.size
+    out = np.empty(resamples)
+    rows = max(1, _CHUNK_ELEMENTS // max(n, 1))
+    for start in range(0, resamples, rows):
+        stop = min(resamples, start + rows)
+        picks = values[rng.integers(0, n, size=(stop - start, n))]
+        out[start:stop] = np.median(picks, axis=1)
+    return out
+
+
+def jackknife_medians(values: np.ndarray) -> np.ndarray:
+    """Leave-one-out medians in O(n log n): removing one value leaves one of two medians."""
+    n = values.size
+    ordered = np.sort(values)
+    order = np.argsort(values, kind="stable")
+    rank = np.empty(n, dtype=np.int64)
+    rank[order] = np.arange(n)
+    m = n - 1  # size after removal
+    if m % 2 == 1:
+        k = m // 2
+        # median of the remaining sorted values is index k of the remainder
+        low_removed = ordered[k + 1]  # removed value was at rank <= k
+        high_removed = ordered[k]
+    else:
+        k = m // 2
+        low_removed = (ordered[k] + ordered[k + 1]) / 2
+        high_removed = (ordered[k - 1] + ordered[k]) / 2
+    return np.where(rank <= k, low_removed, high_removed)
+
+
+def bca_interval(
+    estimate: float,
+    replicates: np.ndarray,
+    jackknife: np.ndarray,
+    confidence: float,
+) -> tuple[float, float]:
+    """BCa interval from bootstrap replicates and jackknife values of the statistic."""
+    replicates = replicates[np.isfinite(replicates)]
+    if replicates.size < 10:
+        return math.nan, math.nan
+    below = np.mean(replicates < estimate) + 0.5 * np.mean(replicates == estimate)
+    below = min(max(below, 1 / (2 * replicates.size)), 1 - 1 / (2 * replicates.size))
+    bias = sps.norm.ppf(below)
+    centred = jackknife.mean() - jackknife
+    denominator = 6 * (np.sum(centred**2) ** 1.5)
+    acceleration = np.sum(centred**3) / denominator if denominator > 0 else 0.0
+    alpha = (1 - confidence) / 2
+    bounds = []
+    for z in (sps.norm.ppf(alpha), sps.norm.ppf(1 - alpha)):
+        adjusted = sps.norm.cdf(bias + (bias + z) / (1 - acceleration * (bias + z)))
+        bounds.append(float(np.quantile(replicates, adjusted)))
+    return bounds[0], bounds[1]
+
+
+def _kth_difference(x: np.ndarray, y: np.ndarray, rank: int) -> float:
+    """The rank-th smallest (1-based) of all y_j - x_i, for sorted x and y, by bisection on
+    the value with an O((n+m) log n) count per step."""
+    low = y[0] - x[-1]
+    high = y[-1] - x[0]
+    for _ in range(200):
+        middle = (low + high) / 2
+        if middle in (low, high):
+            break
+        count = int(np.sum(x.size - np.searchsorted(x, y - middle, side="left")))
+        if count >= rank:
+            high = middle
+        else:
+            low = middle
+    return float(high)
+
+
+def hodges_lehmann(
+    x_logs: np.ndarray, y_logs: np.ndarray, confidence: float = 0.95
+) -> tuple[float, float, float]:
+    """Hodges–Lehmann shift of y over x (on the scale given) with its CI."""
+    x = np.sort(x_logs)
+    y = np.sort(y_logs)
+    n, m = x.size, y.size
+    total = n * m
+    z = sps.norm.ppf(0.5 + confidence / 2)
+    critical = int(math.floor(total / 2 - z * math.sqrt(total * (n + m + 1) / 12)))
+    critical = max(critical, 1)
+    if total <= _BRUTE_FORCE_PAIRS:
+        differences = np.sort(np.subtract.outer(y, x).ravel())
+        shift = float(np.median(differences))
+        return shift, float(differences[critical - 1]), float(differences[total - critical])
+    if total % 2:
+        shift = _kth_difference(x, y, total // 2 + 1)
+    else:
+        shift = (_kth_difference(x, y, total // 2) + _kth_difference(x, y, total // 2 + 1)) / 2
+    return shift, _kth_difference(x, y, critical), _kth_difference(x, y, total - critical + 1)
+
+
+class GroupValues:
+    """Usable (policy-applied) values per grouping × level × outcome, read once."""
+
+    def __init__(self, used: pl.DataFrame, groupings: tuple[str, ...], outcomes: tuple[str, ...]):
+        self._used = used
+        self._outcomes = outcomes
+        self._parts: dict[str, dict] = {}
+        self._groupings = groupings
+
+    def values(self, grouping: str, level: str, outcome: str) -> np.ndarray:
+        if grouping not in self._parts:
+            columns = [o + USED for o in self._outcomes]
+            parts = self._used.select(grouping, *columns).partition_by(grouping, as_dict=True)
+            self._parts[grouping] = {str(key[0]): part for key, part in parts.items()}
+        part = self._parts[grouping].get(level)
+        if part is None:
+            return np.empty(0)
+        return part[outcome + USED].drop_nulls().to_numpy()
+
+
+def robust_check(
+    a: np.ndarray,
+    b: np.ndarray,
+    *,
+    confidence: float = 0.95,
+    resamples: int = DEFAULT_RESAMPLES,
+    seed: int = DEFAULT_SEED,
+    replicates_a: np.ndarray | None = None,
+    replicates_b: np.ndarray | None = None,
+) -> RobustCheck:
+    """All cross-checks for one comparison of positive values a (reference) and b."""
+    if a.size < 2 or b.size < 2:
+        return NAN_CHECK
+    rng = np.random.default_rng(seed)
+    if replicates_a is None:
+        replicates_a = bootstrap_medians(a, resamples, rng)
+    if replicates_b is None:
+        replicates_b = bootstrap_medians(b, resamples, rng)
+    median_a, median_b = float(np.median(a)), float(np.median(b))
+    estimate = median_b / median_a
+    with np.errstate(divide="ignore", invalid="ignore"):
+        replicates = replicates_b / replicates_a
+        # jackknife of the two-sample statistic: leave one out of either sample
+        jackknife = np.concatenate(
+            [median_b / jackknife_medians(a), jackknife_medians(b) / median_a]
+        )
+    low, high = bca_interval(estimate, replicates, jackknife, confidence)
+    shift, shift_low, shift_high = hodges_lehmann(np.log(a), np.log(b), confidence)
+    mw = sps.mannwhitneyu(b, a, alternative="two-sided")
+    return RobustCheck(
+        median_ratio=estimate,
+        median_ratio_ci_low=low,
+        median_ratio_ci_high=high,
+        hl_ratio=math.exp(shift),
+        hl_ci_low=math.exp(shift_low),
+        hl_ci_high=math.exp(shift_high),
+        mann_whitney_p=float(mw.pvalue),
+    )
+
+
+ROBUST_COLUMNS = (
+    "boot_median_ratio_low",
+    "boot_median_ratio_high",
+    "hl_ratio",
+    "hl_ci_low",
+    "hl_ci_high",
+    "mann_whitney_p",
+)
+
+
+def robust_all(
+    result,
+    *,
+    resamples: int = DEFAULT_RESAMPLES,
+    seed: int = DEFAULT_SEED,
+    progress: Callable[[int, int], None] | None = None,
+    cancelled: Callable[[], bool] | None = None,
+) -> pl.DataFrame:
+    """The comparisons frame of a ScanResult with the robust columns added for every row."""
+    comparisons = result.comparisons
+    groups = GroupValues(result.used, result.table.groupings, result.table.outcomes)
+    cache: dict[tuple[str, str, str], np.ndarray] = {}
+    confidence = result.settings.confidence
+    rows = comparisons.select("grouping", "outcome", "level_a", "level_b").rows()
+    columns: dict[str, list[float]] = {name: [] for name in ROBUST_COLUMNS}
+    for index, (grouping, outcome, level_a, level_b) in enumerate(rows):
+        if cancelled is not None and cancelled():
+            break
+        arrays = []
+        for level in (level_a, level_b):
+            key = (grouping, level, outcome)
+            values = groups.values(*key)
+            if key not in cache and values.size >= 2:
+                # one seed per group so the same group's replicates are reused
+                group_seed = [seed, *(ord(c) for c in "|".join(key))]
+                cache[key] = bootstrap_medians(values, resamples, np.random.default_rng(group_seed))
+            arrays.append((values, cache.get(key)))
+        (a, reps_a), (b, reps_b) = arrays
+        check = robust_check(
+            a,
+            b,
+            confidence=confidence,
+            resamples=resamples,
+            seed=seed,
+            replicates_a=reps_a,
+            replicates_b=reps_b,
+        )
+        for name, value in zip(
+            ROBUST_COLUMNS,
+            (
+                check.median_ratio_ci_low,
+                check.median_ratio_ci_high,
+                check.hl_ratio,
+                check.hl_ci_low,
+                check.hl_ci_high,
+                check.mann_whitney_p,
+            ),
+            strict=True,
+        ):
+            columns[name].append(value)
+        if progress is not None and (index % 10 == 0 or index == len(rows) - 1):
+            progress(index + 1, len(rows))
+    filled = len(columns[ROBUST_COLUMNS[0]])
+    for name in ROBUST_COLUMNS:
+        columns[name] += [math.nan] * (len(rows) - filled)
+    return comparisons.with_columns(
+        [
+            pl.Series(name, values, dtype=pl.Float64).fill_nan(None)
+            for name, values in columns.items()
+        ]
+    )

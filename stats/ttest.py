@@ -1,0 +1,94 @@
+"""Two-sample t-tests on the log scale from summary statistics, vectorised over comparisons.
+
+Formulas: NIST/SEMATECH e-Handbook of Statistical Methods, section 1.3.5.3 (two-sample
+t-test; Welch–Satterthwaite degrees of freedom for unequal variances).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats as sps
+
+TESTS = ("welch", "pooled")
+
+
+@dataclass(frozen=True)
+class LogTTest:
+    """Arrays, one entry per comparison; NaN where the test cannot be computed."""
+
+    difference: np.ndarray  # mean(log b) - mean(log a)
+    standard_error: np.ndarray
+    df: np.ndarray
+    t: np.ndarray
+    p_value: np.ndarray
+    t_critical: np.ndarray
+    ci_low: np.ndarray  # of the difference of mean logs
+    ci_high: np.ndarray
+
+    @property
+    def ratio(self) -> np.ndarray:
+        return np.exp(self.difference)
+
+    @property
+    def ratio_ci(self) -> tuple[np.ndarray, np.ndarray]:
+        return np.exp(self.ci_low), np.exp(self.ci_high)
+
+
+def log_t_test(
+    n_a: np.ndarray,
+    mean_a: np.ndarray,
+    ss_a: np.ndarray,
+    n_b: np.ndarray,
+    mean_b: np.ndarray,
+    ss_b: np.ndarray,
+    *,
+    test: str = "welch",
+    confidence: float = 0.95,
+) -> LogTTest:
+    """Welch or pooled t-test of mean(log b) - mean(log a) from counts, means and sums of
+    squared deviations of the logs. Rows with fewer than 2 values in a group, or with no
+    spread at all, give NaN."""
+    if test not in TESTS:
+        raise ValueError(f"unknown test {test!r}; choose welch or pooled")
+    if not 0 < confidence < 1:
+        raise ValueError(f"confidence must be between 0 and 1, got {confidence}")
+    n_a = np.asarray(n_a, dtype=float)
+    n_b = np.asarray(n_b, dtype=float)
+    mean_a = np.asarray(mean_a, dtype=float)
+    mean_b = np.asarray(mean_b, dtype=float)
+    ss_a = np.asarray(ss_a, dtype=float)
+    ss_b = np.asarray(ss_b, dtype=float)
+    usable = (n_a >= 2) & (n_b >= 2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        var_a = np.where(usable, ss_a / (n_a - 1), np.nan)
+        var_b = np.where(usable, ss_b / (n_b - 1), np.nan)
+        difference = np.where(usable, mean_b - mean_a, np.nan)
+        if test == "welch":
+            share_a = var_a / n_a
+            share_b = var_b / n_b
+            se2 = share_a + share_b
+            df = se2**2 / (share_a**2 / (n_a - 1) + share_b**2 / (n_b - 1))
+        else:
+            df = n_a + n_b - 2
+            pooled = (ss_a + ss_b) / df
+            se2 = pooled * (1 / n_a + 1 / n_b)
+        se = np.sqrt(se2)
+        valid = usable & (se > 0) & np.isfinite(se)
+        se = np.where(valid, se, np.nan)
+        df = np.where(valid, df, np.nan)
+        difference = np.where(valid, difference, np.nan)
+        t = difference / se
+        p_value = 2 * sps.t.sf(np.abs(t), df)
+        t_critical = sps.t.ppf(0.5 + confidence / 2, df)
+    return LogTTest(
+        difference=difference,
+        standard_error=se,
+        df=df,
+        t=t,
+        p_value=p_value,
+        t_critical=t_critical,
+        ci_low=difference - t_critical * se,
+        ci_high=difference + t_critical * se,
+    )

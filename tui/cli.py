@@ -1,0 +1,285 @@
+"""The ``foldsift`` command line. Textual is imported only by ``review``."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from foldsift.stats.equivalence import DEFAULT_BAND, parse_band
+from foldsift.stats.load import InputError, Table, load_table
+from foldsift.stats.multiplicity import FAMILIES
+from foldsift.stats.policy import CENSORED_POLICIES, NONPOSITIVE_POLICIES, ValuePolicy
+from foldsift.stats.scan import PAIRS, ScanResult, ScanSettings, run_scan
+from foldsift.stats.ttest import TESTS
+
+EXIT_BAD_INPUT = 2
+
+
+def _band(text: str) -> tuple[float, float]:
+    try:
+        return parse_band(text)
+    except ValueError as error:
+        raise argparse.ArgumentTypeError(str(error)) from None
+
+
+def _confidence(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number; use e.g. 0.95") from None
+    if not 0.5 <= value < 1:
+        raise argparse.ArgumentTypeError(f"{text}: give a level between 0.5 and 1, e.g. 0.95")
+    return value
+
+
+def _ratio(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number; use e.g. 1.5") from None
+    if not value > 0 or value == 1:
+        raise argparse.ArgumentTypeError(f"{text}: the target ratio must be positive and not 1")
+    return value
+
+
+def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = True) -> None:
+    if data_required:
+        parser.add_argument("data", type=Path, help="CSV, TSV or Parquet file, one row per sample")
+    else:
+        parser.add_argument(
+            "data", type=Path, nargs="?", help="CSV, TSV or Parquet file (default: the demo data)"
+        )
+    roles = parser.add_argument_group("columns")
+    roles.add_argument("--group", action="append", metavar="COL", help="grouping column (repeat)")
+    roles.add_argument("--outcome", action="append", metavar="COL", help="outcome column (repeat)")
+    method = parser.add_argument_group("method")
+    method.add_argument(
+        "--pairs",
+        choices=PAIRS,
+        default="all",
+        help="all pairs of levels, or each level against a reference (default all)",
+    )
+    method.add_argument(
+        "--reference",
+        action="append",
+        default=[],
+        metavar="LEVEL",
+        help="reference level (denominator) for --pairs reference; LEVEL or GROUPING=LEVEL (repeat)",
+    )
+    method.add_argument(
+        "--test", choices=TESTS, default="welch", help="t-test on the logs (default welch)"
+    )
+    method.add_argument(
+        "--confidence",
+        type=_confidence,
+        default=0.95,
+        metavar="LEVEL",
+        help="CI level (default 0.95)",
+    )
+    method.add_argument(
+        "--nonpositive",
+        choices=NONPOSITIVE_POLICIES,
+        default="exclude",
+        help="zeros and negatives: leave out (default) or replace by half the smallest positive value",
+    )
+    method.add_argument(
+        "--censored",
+        choices=CENSORED_POLICIES,
+        default="exclude",
+        help="entries like <0.5: leave out (default), or replace by DL/2 (half-dl) or DL/sqrt(2) (dl-root2)",
+    )
+    method.add_argument(
+        "--family",
+        choices=FAMILIES,
+        default="scan",
+        help="family for Holm and BH adjustment (default: the whole scan)",
+    )
+    method.add_argument(
+        "--band",
+        type=_band,
+        default=DEFAULT_BAND,
+        metavar="LOW,HIGH",
+        help="ratio band of no practical difference, judged with the 90%% CI (default 0.80,1.25)",
+    )
+    method.add_argument(
+        "--target-ratio",
+        type=_ratio,
+        metavar="R",
+        help="also report the n per group needed to detect ratio R",
+    )
+
+
+def settings_from(args: argparse.Namespace) -> ScanSettings:
+    return ScanSettings(
+        pairs=args.pairs,
+        reference=tuple(args.reference),
+        test=args.test,
+        confidence=args.confidence,
+        policy=ValuePolicy(nonpositive=args.nonpositive, censored=args.censored),
+        family=args.family,
+        band=tuple(args.band),
+        target_ratio=args.target_ratio,
+    )
+
+
+def data_path(args: argparse.Namespace) -> Path:
+    if args.data is not None:
+        return args.data
+    from foldsift.demo.generate import demo_path
+
+    return demo_path()
+
+
+def load_and_scan(args: argparse.Namespace) -> ScanResult:
+    table: Table = load_table(data_path(args), groupings=args.group, outcomes=args.outcome)
+    return run_scan(table, settings_from(args))
+
+
+def _fail(message: str) -> int:
+    print(f"foldsift: {message}", file=sys.stderr)
+    return EXIT_BAD_INPUT
+
+
+def command_scan(args: argparse.Namespace) -> int:
+    from foldsift.stats.robust import robust_all
+    from foldsift.stats.sentence import finding
+
+    result = load_and_scan(args)
+    table = result.table
+    print(
+        f"foldsift: {table.name}: {len(table.groupings)} grouping column(s) "
+        f"({', '.join(table.groupings)}), {len(table.outcomes)} outcome(s), "
+        f"{result.comparisons.height} comparisons; {result.settings.policy.describe()}",
+        file=sys.stderr,
+    )
+    for name, count in table.unparsed.items():
+        print(
+            f"foldsift: warning: {name}: {count} entries were not numbers and were read as missing",
+            file=sys.stderr,
+        )
+    comparisons = result.comparisons
+    if args.robust:
+        comparisons = robust_all(result, resamples=args.resamples, progress=_progress_bar)
+        print(file=sys.stderr)
+    comparisons = comparisons.with_columns(
+        sentence=pl_sentences(comparisons, finding),
+    )
+    if args.out is None:
+        sys.stdout.write(comparisons.write_csv())
+    else:
+        comparisons.write_csv(args.out)
+        print(f"foldsift: wrote {comparisons.height} rows to {args.out}", file=sys.stderr)
+    return 0
+
+
+def pl_sentences(frame, finding):
+    import polars as pl
+
+    return pl.Series(
+        "sentence", [finding(row) for row in frame.iter_rows(named=True)], dtype=pl.Utf8
+    )
+
+
+def _progress_bar(done: int, total: int) -> None:
+    width = 30
+    filled = width * done // max(total, 1)
+    print(
+        f"\rrobust checks [{'#' * filled}{'.' * (width - filled)}] {done}/{total}",
+        end="",
+        file=sys.stderr,
+        flush=True,
+    )
+
+
+def command_review(args: argparse.Namespace) -> int:
+    from foldsift.tui.app import make_app
+
+    app = make_app(data_path(args), args, reviews=args.reviews)
+    app.run()
+    return app.return_code or 0
+
+
+def command_export(args: argparse.Namespace) -> int:
+    from foldsift.stats.export import join_reviews, select_rows, write_export
+    from foldsift.stats.reviews import ReviewStore, default_review_path
+    from foldsift.stats.sentence import finding
+
+    result = load_and_scan(args)
+    path = args.reviews or default_review_path(data_path(args))
+    if not Path(path).exists():
+        return _fail(f"{path}: no review file yet; review the data first or give --reviews PATH")
+    with ReviewStore(path, result.table.fingerprint) as store:
+        joined = join_reviews(result.comparisons, store.frame())
+    rows = select_rows(joined, "all" if args.all else "flagged")
+    rows = rows.with_columns(sentence=pl_sentences(rows, finding))
+    settings = result.metadata() | {
+        "rows_chosen": "all" if args.all else "flagged",
+        "reviews": str(path),
+    }
+    try:
+        written = write_export(rows, args.out, settings, overwrite=args.overwrite)
+    except FileExistsError as error:
+        return _fail(f"{error}; add --overwrite to replace it")
+    print(
+        f"foldsift: wrote {rows.height} rows to {written} (settings in {written}.settings.json)",
+        file=sys.stderr,
+    )
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="foldsift",
+        description="Compare groups on many positive, right-skewed measurements on the log scale.",
+    )
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    scan = commands.add_parser("scan", help="compute every comparison and write CSV")
+    add_scan_options(scan)
+    scan.add_argument("--out", type=Path, metavar="FILE.csv", help="write here instead of stdout")
+    scan.add_argument(
+        "--robust",
+        action="store_true",
+        help="add bootstrap and Hodges-Lehmann cross-checks (slower)",
+    )
+    scan.add_argument(
+        "--resamples",
+        type=int,
+        default=2000,
+        metavar="N",
+        help="bootstrap resamples (default 2000)",
+    )
+    review = commands.add_parser("review", help="open the full-screen review app")
+    add_scan_options(review, data_required=False)
+    review.add_argument(
+        "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
+    )
+    export = commands.add_parser("export", help="write reviewed rows to CSV without the app")
+    add_scan_options(export, data_required=False)
+    export.add_argument(
+        "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
+    )
+    export.add_argument("--all", action="store_true", help="all rows, not only flagged ones")
+    export.add_argument("--out", type=Path, required=True, metavar="FILE.csv")
+    export.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    handlers = {"scan": command_scan, "review": command_review, "export": command_export}
+    try:
+        return handlers[args.command](args)
+    except InputError as error:
+        return _fail(str(error))
+    except ValueError as error:
+        return _fail(str(error))
+    except BrokenPipeError:
+        return 0
+    except KeyboardInterrupt:
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())
