@@ -105,8 +105,14 @@ def read_raw(path: Path | str) -> pl.DataFrame:
         if frame.height == 0:
             raise InputError(f"{path}: has a header but no data rows; nothing to compare")
         return frame
-    with path.open("rb") as handle:
-        head = handle.read(64 * 1024)
+    try:
+        with path.open("rb") as handle:
+            head = handle.read(64 * 1024)
+    except OSError as error:
+        raise InputError(
+            f"{path}: cannot be opened ({error.strerror or type(error).__name__}); "
+            "check the file's permissions"
+        ) from None
     if not head.strip():
         raise InputError(f"{path}: is empty; give a table with a header row and data rows")
     if b"\x00" in head:
@@ -233,7 +239,10 @@ def load_table(
                     f"{label}: no column named {name!r} (asked for as {role}); columns are: {shown}"
                 )
     guessed_groups, guessed_outcomes = infer_roles(raw)
-    chosen_groups = list(groupings) if groupings else guessed_groups
+    if groupings:
+        chosen_groups = list(groupings)
+    else:
+        chosen_groups = [name for name in guessed_groups if name not in (outcomes or ())]
     if outcomes:
         chosen_outcomes = list(outcomes)
     else:

@@ -19,7 +19,10 @@ DEFAULT_POWER = 0.80
 
 def _power(ncp: np.ndarray, df: np.ndarray, alpha: float) -> np.ndarray:
     critical = sps.t.ppf(1 - alpha / 2, df)
-    return sps.nct.sf(critical, df, ncp) + sps.nct.cdf(-critical, df, ncp)
+    # Lower tail P(T' < -c; ncp) as P(T' > c; -ncp) (T'(ncp) and -T'(-ncp) have one law):
+    # scipy's nct.cdf returns NaN far in that tail (e.g. df 98, ncp 10), which broke the
+    # bisection; nct.sf does not.
+    return sps.nct.sf(critical, df, ncp) + sps.nct.sf(critical, df, -ncp)
 
 
 def _bisect(function, low: np.ndarray, high: np.ndarray, iterations: int = 80) -> np.ndarray:

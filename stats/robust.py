@@ -76,6 +76,9 @@ def jackknife_medians(values: np.ndarray) -> np.ndarray:
         k = m // 2
         low_removed = (ordered[k] + ordered[k + 1]) / 2
         high_removed = (ordered[k - 1] + ordered[k]) / 2
+        # removing the middle value itself leaves its two neighbours as the middle pair
+        middle_removed = (ordered[k - 1] + ordered[k + 1]) / 2
+        return np.where(rank < k, low_removed, np.where(rank == k, middle_removed, high_removed))
     return np.where(rank <= k, low_removed, high_removed)
 
 

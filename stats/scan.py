@@ -209,6 +209,7 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         pooled_sd = np.sqrt((column("ss_log_a") + column("ss_log_b")) / (n_a + n_b - 2))
         median_ratio = column("median_b") / column("median_a")
         log_median_ratio = np.log(median_ratio)
+        sd_log_ratio = sd_b / sd_a
     extra = {
         "ratio": test.ratio,
         "ci_low": ratio_low,
@@ -223,7 +224,7 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         "se_log": test.standard_error,
         "df": test.df,
         "t": test.t,
-        "sd_log_ratio": sd_b / sd_a,
+        "sd_log_ratio": sd_log_ratio,
         "spread_p": diagnostics.spread_test(sd_a, n_a, sd_b, n_b),
         "median_gm_z": diagnostics.median_gm_z(
             log_median_ratio, test.difference, sd_a, n_a, sd_b, n_b

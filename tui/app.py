@@ -1,0 +1,665 @@
+"""The review app: a list of every comparison, the detail of the highlighted one, and the
+reviewer's flags, decisions and notes, saved at once."""
+
+from __future__ import annotations
+
+import argparse
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import polars as pl
+from foldsift.stats.diagnostics import explain
+from foldsift.stats.equivalence import BAND_CLASSES
+from foldsift.stats.export import join_reviews, write_export
+from foldsift.stats.load import InputError, load_table
+from foldsift.stats.reviews import ReviewStore, ReviewStoreError, default_review_path
+from foldsift.stats.robust import GroupValues, RobustCheck, robust_check
+from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
+from foldsift.stats.sentence import finding, number, p_text, ratio_text, readable_outcome
+from rich.table import Table as RichTable
+from rich.text import Text
+from textual import on, work
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, VerticalScroll
+from textual.message import Message
+from textual.timer import Timer
+from textual.widgets import Footer, Input, Static
+
+from .filtering import FilterError, parse_filter
+from .screens.dialogs import (
+    CAUTIONS,
+    ConfirmScreen,
+    ExportChoice,
+    ExportScreen,
+    NoteScreen,
+    TextScreen,
+)
+from .widgets.comparison_list import COLUMNS, ComparisonList
+from .widgets.histograms import STYLE_A, STYLE_B, back_to_back
+
+SORTABLE = [column.sort_on for column in COLUMNS]
+SORT_NAMES = {column.sort_on: column.title for column in COLUMNS} | {
+    "flagged": "flag",
+    "note": "note",
+    "warning_count": "warnings",
+    "level_b": "levels",
+    "n_a": "n",
+    "ci_low": "CI",
+}
+DECISION_KEYS = {"1": "keep", "2": "doubt", "3": "drop"}
+
+
+@dataclass
+class ScanFinished(Message):
+    """The background scan is done (result) or failed (error)."""
+
+    result: ScanResult | None
+    error: str | None
+
+
+@dataclass
+class RobustFinished(Message):
+    key: str
+    check: RobustCheck | None
+    error: str | None = None
+
+
+class FoldsiftApp(App[int]):
+    """Triage every comparison of a scan."""
+
+    CSS_PATH = "app.tcss"
+    TITLE = "foldsift"
+    BINDINGS = [
+        Binding("slash", "focus_filter", "Filter", id="app.filter"),
+        Binding("s", "next_sort", "Sort", id="app.sort"),
+        Binding("r", "reverse_sort", "Reverse", id="app.reverse"),
+        Binding("space", "toggle_flag", "Flag", id="app.flag"),
+        Binding("n", "edit_note", "Note", id="app.note"),
+        Binding("1", "decide('keep')", "Keep", id="app.keep"),
+        Binding("2", "decide('doubt')", "Doubt", id="app.doubt"),
+        Binding("3", "decide('drop')", "Drop", id="app.drop"),
+        Binding("0", "decide('')", "Undecide", show=False, id="app.undecide"),
+        Binding("b", "robust", "Cross-check", id="app.robust"),
+        Binding("x", "export", "Export", id="app.export"),
+        Binding("question_mark", "help", "Help", id="app.help"),
+        Binding("i", "about", "About", id="app.about"),
+    ]
+
+    def __init__(
+        self,
+        data_path: Path,
+        settings: ScanSettings,
+        *,
+        groupings: list[str] | None = None,
+        outcomes: list[str] | None = None,
+        reviews: Path | None = None,
+        export_dir: Path | None = None,
+    ) -> None:
+        super().__init__()
+        self.data_path = Path(data_path)
+        self.settings = settings
+        self._groupings = groupings
+        self._outcomes = outcomes
+        self._reviews_path = reviews
+        self.export_dir = export_dir or Path.cwd()
+        self.result: ScanResult | None = None
+        self.store: ReviewStore | None = None
+        self.base: pl.DataFrame = pl.DataFrame()
+        self.sort_on = "q_bh"
+        self.descending = False
+        self.filter_text = ""
+        self.robust: dict[str, RobustCheck] = {}
+        self._values: GroupValues | None = None
+        self._plot_timer: Timer | None = None
+        self._message = ""
+
+    # -- layout -----------------------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        yield Static("", id="status")
+        yield Input(
+            placeholder="filter: words · q<0.05 · ratio>2 · outside:0.8,1.25 · warned · flagged · undecided  (/ to type, ? for all)",
+            id="filter",
+        )
+        yield ComparisonList(id="list")
+        with Horizontal(id="detail"):
+            with VerticalScroll(id="facts"):
+                yield Static("", id="sentence")
+                yield Static("", id="numbers")
+                yield Static("", id="warnings")
+            with VerticalScroll(id="plots"):
+                yield Static("", id="plot-raw")
+                yield Static("", id="plot-log")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.sub_title = self.data_path.name
+        self._set_status(f"scanning {self.data_path.name} …")
+        self.query_one(ComparisonList).focus()
+        self.run_scan()
+
+    # -- scan -------------------------------------------------------------------------------
+    @work(thread=True, exclusive=True, group="scan")
+    def run_scan(self) -> None:
+        try:
+            table = load_table(self.data_path, groupings=self._groupings, outcomes=self._outcomes)
+            result = run_scan(table, self.settings)
+        except (InputError, ValueError) as error:
+            self.post_message(ScanFinished(None, str(error)))
+            return
+        self.post_message(ScanFinished(result, None))
+
+    @on(ScanFinished)
+    def scan_finished(self, message: ScanFinished) -> None:
+        if message.result is None:
+            self._show_error(f"Cannot open the data: {message.error}")
+            return
+        self.result = message.result
+        path = self._reviews_path or default_review_path(self.data_path)
+        try:
+            self.store = ReviewStore(path, self.result.table.fingerprint)
+        except ReviewStoreError as error:
+            self._show_error(f"Cannot open the review file: {error}")
+            return
+        self._values = GroupValues(
+            self.result.used, self.result.table.groupings, self.result.table.outcomes
+        )
+        self.base = self._with_reviews(self.result.comparisons)
+        self._apply_view()
+        earlier = int(self.base["on_earlier_data"].sum())
+        if earlier:
+            self._message = f"{earlier} review(s) were made on an earlier version of the data (shown in italics)"
+        self._set_status()
+
+    def _show_error(self, text: str) -> None:
+        self._message = text
+        self.query_one("#status", Static).update(
+            Text(text + "  — press ctrl+q to quit", style="bold red")
+        )
+        self.query_one("#sentence", Static).update(Text(text, style="bold red"))
+
+    def _with_reviews(self, comparisons: pl.DataFrame) -> pl.DataFrame:
+        assert self.store is not None
+        joined = join_reviews(comparisons, self.store.frame())
+        return joined.with_columns(
+            warning_count=pl.when(pl.col("warnings") == "")
+            .then(0)
+            .otherwise(pl.col("warnings").str.count_matches(";") + 1)
+        )
+
+    # -- view: sort and filter --------------------------------------------------------------
+    def _apply_view(self, keep_key: str | None = None) -> None:
+        listing = self.query_one(ComparisonList)
+        keep_key = keep_key or listing.current_key
+        frame = self.base
+        try:
+            expression = parse_filter(self.filter_text)
+        except FilterError as error:
+            self._message = f"filter: {error}"
+            expression = None
+        else:
+            if self._message.startswith("filter:"):
+                self._message = ""
+        if expression is not None:
+            frame = frame.filter(expression)
+        frame = frame.sort(
+            self.sort_on, descending=self.descending, nulls_last=True, maintain_order=True
+        )
+        listing.sort_on = self.sort_on
+        listing.descending = self.descending
+        listing.show(frame, keep_key=keep_key)
+        self._set_status()
+
+    def _set_status(self, text: str | None = None) -> None:
+        status = self.query_one("#status", Static)
+        if text is not None:
+            status.update(text)
+            return
+        shown = self.query_one(ComparisonList).frame.height
+        total = self.base.height
+        flagged = int(self.base["flagged"].sum()) if total else 0
+        decided = int(self.base["decision"].is_not_null().sum()) if total else 0
+        order = "descending" if self.descending else "ascending"
+        line = Text.assemble(
+            ("shown ", "dim"),
+            (f"{shown}", "bold"),
+            (f"/{total}", ""),
+            ("  flagged ", "dim"),
+            (f"{flagged}", "bold"),
+            ("  decided ", "dim"),
+            (f"{decided}", "bold"),
+            ("  sort ", "dim"),
+            (f"{SORT_NAMES.get(self.sort_on, self.sort_on)} {order}", "bold"),
+            ("  filter ", "dim"),
+            (self.filter_text or "none", "bold"),
+        )
+        if self._message:
+            line.append("  · " + self._message, style="italic")
+        status.update(line)
+
+    @on(Input.Changed, "#filter")
+    def filter_changed(self, event: Input.Changed) -> None:
+        self.filter_text = event.value
+        if self.result is not None:
+            self._apply_view()
+
+    @on(Input.Submitted, "#filter")
+    def filter_submitted(self) -> None:
+        self.query_one(ComparisonList).focus()
+
+    def action_focus_filter(self) -> None:
+        self.query_one("#filter", Input).focus()
+
+    def action_next_sort(self) -> None:
+        index = SORTABLE.index(self.sort_on) if self.sort_on in SORTABLE else -1
+        self.sort_on = SORTABLE[(index + 1) % len(SORTABLE)]
+        self._apply_view()
+
+    def action_reverse_sort(self) -> None:
+        self.descending = not self.descending
+        self._apply_view()
+
+    @on(ComparisonList.HeaderClicked)
+    def header_clicked(self, message: ComparisonList.HeaderClicked) -> None:
+        if message.sort_on == self.sort_on:
+            self.descending = not self.descending
+        else:
+            self.sort_on, self.descending = message.sort_on, False
+        self._apply_view()
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        needs_row = {
+            "toggle_flag",
+            "edit_note",
+            "decide",
+            "robust",
+            "export",
+            "next_sort",
+            "reverse_sort",
+        }
+        if action in needs_row and (self.result is None or self.store is None):
+            return None
+        return not (isinstance(self.focused, Input) and action in needs_row | {"focus_filter"})
+
+    # -- detail -----------------------------------------------------------------------------
+    def _current(self) -> dict | None:
+        listing = self.query_one(ComparisonList)
+        if not listing.frame.height:
+            return None
+        return listing.frame.row(listing.cursor_row, named=True)
+
+    @on(ComparisonList.Highlighted)
+    def highlighted(self, message: ComparisonList.Highlighted) -> None:
+        self._show_facts()
+        if self._plot_timer is not None:
+            self._plot_timer.stop()
+        self._plot_timer = self.set_timer(0.06, self._show_plots)
+
+    def _show_facts(self) -> None:
+        row = self._current()
+        sentence = self.query_one("#sentence", Static)
+        numbers = self.query_one("#numbers", Static)
+        warnings = self.query_one("#warnings", Static)
+        if row is None:
+            sentence.update(Text("No comparison matches the filter.", style="italic"))
+            numbers.update("")
+            warnings.update("")
+            return
+        sentence.update(Text(finding(row), style="bold"))
+        numbers.update(self._numbers_table(row))
+        lines = Text()
+        for name, text in explain(row["warnings"]):
+            lines.append(f"! {name}", style="bold yellow")
+            lines.append(f"  {text}\n")
+        if not row["warnings"]:
+            lines.append("no warnings\n", style="green")
+        review = []
+        if row.get("decision"):
+            review.append(f"decision: {row['decision']}")
+        if row.get("flagged"):
+            review.append("flagged")
+        if row.get("on_earlier_data"):
+            review.append("review made on an earlier version of the data file")
+        if review:
+            lines.append(" · ".join(review) + "\n", style="bold")
+        if row.get("note"):
+            lines.append("note: ", style="bold")
+            lines.append(row["note"] + "\n")
+        warnings.update(lines)
+
+    def _numbers_table(self, row: dict) -> RichTable:
+        table = RichTable(box=None, padding=(0, 1), show_header=True, header_style="bold")
+        table.add_column("")
+        table.add_column(f"a: {row['level_a']}", style=STYLE_A)
+        table.add_column(f"b: {row['level_b']}", style=STYLE_B)
+
+        def pair(label: str, name: str, fmt=number) -> None:
+            table.add_row(label, fmt(row.get(name + "_a")), fmt(row.get(name + "_b")))
+
+        counts = lambda value: "–" if value is None else str(value)  # noqa: E731
+        pair("n used", "n", counts)
+        pair("left out", "n_excluded", counts)
+        pair("substituted", "n_substituted", counts)
+        pair("below detection", "n_censored", counts)
+        pair("geometric mean", "gm")
+        pair("median", "median")
+        pair("log SD", "sd_log")
+        pair("skew (logs)", "skew_log")
+        pair("skew (raw)", "skew_raw")
+        pair("Shapiro-Wilk p (logs)", "shapiro_p", p_text)
+        level = round(100 * row["confidence"])
+        test = "Welch" if row["test"] == "welch" else "pooled"
+        table.add_row("", "", "")
+        table.add_row(
+            "ratio b/a (GM)",
+            ratio_text(row["ratio"]),
+            f"{level}% CI {ratio_text(row['ci_low'])}–{ratio_text(row['ci_high'])}",
+        )
+        table.add_row(
+            "ratio of medians",
+            ratio_text(row["median_ratio"]),
+            f"change {number(row['percent_change'])}%",
+        )
+        table.add_row(
+            "log2 ratio", number(row.get("log2_ratio")), f"df {number(row.get('df'))} ({test})"
+        )
+        table.add_row(
+            "p", p_text(row["p_value"]), f"Holm {p_text(row['p_holm'])}  q {p_text(row['q_bh'])}"
+        )
+        band = self.settings.band
+        table.add_row(
+            f"band {band[0]:g}–{band[1]:g}",
+            row.get("band_class") or "–",
+            f"90% CI {ratio_text(row.get('tost_ci_low'))}–{ratio_text(row.get('tost_ci_high'))}",
+        )
+        table.add_row(
+            "CI width (hi/lo)",
+            number(row.get("ci_fold")),
+            f"detectable {ratio_text(row.get('detectable_ratio'))}× (80% power)",
+        )
+        check = self.robust.get(row["key"])
+        if check is not None:
+            table.add_row(
+                "bootstrap medians",
+                f"{ratio_text(check.median_ratio_ci_low)}–{ratio_text(check.median_ratio_ci_high)}",
+                "BCa CI of median ratio",
+            )
+            table.add_row(
+                "Hodges-Lehmann",
+                ratio_text(check.hl_ratio),
+                f"CI {ratio_text(check.hl_ci_low)}–{ratio_text(check.hl_ci_high)}, Mann-Whitney {p_text(check.mann_whitney_p, 'p')}",
+            )
+        else:
+            table.add_row("cross-checks", "press b", "bootstrap and Hodges-Lehmann")
+        return table
+
+    def _show_plots(self) -> None:
+        row = self._current()
+        raw = self.query_one("#plot-raw", Static)
+        log = self.query_one("#plot-log", Static)
+        if row is None or self._values is None:
+            raw.update("")
+            log.update("")
+            return
+        a = self._values.values(row["grouping"], row["level_a"], row["outcome"])
+        b = self._values.values(row["grouping"], row["level_b"], row["outcome"])
+        plots = self.query_one("#plots")
+        width = max(plots.size.width - 2, 30)
+        height = max((plots.size.height - 1) // 2, 8)
+        name = readable_outcome(row["outcome"])
+        legend = f"{name}: ▲ b {row['level_b']} · ▼ a {row['level_a']} · lines GM, + median"
+        raw.update(
+            back_to_back(a, b, log_scale=False, width=width, height=height, title="raw  " + legend)
+        )
+        log.update(
+            back_to_back(
+                a,
+                b,
+                log_scale=True,
+                width=width,
+                height=height,
+                title="log scale (ticks in raw units)",
+            )
+        )
+
+    # -- reviewing --------------------------------------------------------------------------
+    def _changed(self, key: str) -> None:
+        assert self.store is not None
+        review = self.store.get(key)
+        values = {
+            "flagged": review.flagged if review else False,
+            "decision": review.decision if review else None,
+            "note": review.note if review else "",
+            "on_earlier_data": review.on_earlier_data if review else False,
+        }
+        match = pl.col("key") == key
+        self.base = self.base.with_columns(
+            [
+                pl.when(match)
+                .then(pl.lit(v, dtype=self.base.schema[c]))
+                .otherwise(pl.col(c))
+                .alias(c)
+                for c, v in values.items()
+            ]
+        )
+        listing = self.query_one(ComparisonList)
+        if self.filter_text or self.sort_on in ("flagged", "decision", "note"):
+            self._apply_view(keep_key=key)
+        else:
+            listing.update_row(
+                listing.frame.with_columns(
+                    [
+                        pl.when(match)
+                        .then(pl.lit(v, dtype=self.base.schema[c]))
+                        .otherwise(pl.col(c))
+                        .alias(c)
+                        for c, v in values.items()
+                    ]
+                )
+            )
+        self._set_status()
+        self._show_facts()
+
+    def _save(self, change) -> bool:
+        try:
+            change()
+        except ReviewStoreError as error:
+            self._message = f"NOT SAVED: {error}"
+            self._set_status()
+            self.bell()
+            return False
+        return True
+
+    def action_toggle_flag(self) -> None:
+        key = self.query_one(ComparisonList).current_key
+        if key and self.store and self._save(lambda: self.store.toggle_flag(key)):
+            self._changed(key)
+
+    def action_decide(self, decision: str) -> None:
+        key = self.query_one(ComparisonList).current_key
+        if (
+            key
+            and self.store
+            and self._save(lambda: self.store.set_decision(key, decision or None))
+        ):
+            self._changed(key)
+
+    def action_edit_note(self) -> None:
+        row = self._current()
+        if row is None or self.store is None:
+            return
+        key = row["key"]
+        title = f"Note: {readable_outcome(row['outcome'])}, {row['level_b']} ÷ {row['level_a']} ({row['grouping']})"
+
+        def done(text: str | None) -> None:
+            if (
+                text is not None
+                and self.store
+                and self._save(lambda: self.store.set_note(key, text))
+            ):
+                self._changed(key)
+
+        self.push_screen(NoteScreen(title, row.get("note") or ""), done)
+
+    # -- robust cross-checks ----------------------------------------------------------------
+    def action_robust(self) -> None:
+        row = self._current()
+        if row is None or self._values is None:
+            return
+        self._message = "cross-checks running (bootstrap 2,000 resamples) …"
+        self._set_status()
+        a = self._values.values(row["grouping"], row["level_a"], row["outcome"])
+        b = self._values.values(row["grouping"], row["level_b"], row["outcome"])
+        self._robust_worker(row["key"], a, b, row["confidence"])
+
+    @work(thread=True, exclusive=True, group="robust")
+    def _robust_worker(self, key: str, a, b, confidence: float) -> None:
+        try:
+            check = robust_check(a, b, confidence=confidence)
+        except Exception as error:  # a numerical failure must not end the session
+            self.post_message(RobustFinished(key, None, str(error)))
+            return
+        self.post_message(RobustFinished(key, check))
+
+    @on(RobustFinished)
+    def robust_finished(self, message: RobustFinished) -> None:
+        if message.check is None:
+            self._message = f"cross-checks failed: {message.error}"
+        else:
+            self.robust[message.key] = message.check
+            self._message = (
+                "cross-checks done"
+                if not message.check.reason
+                else f"cross-checks: {message.check.reason}"
+            )
+        self._set_status()
+        self._show_facts()
+
+    # -- export -----------------------------------------------------------------------------
+    def action_export(self) -> None:
+        if self.result is None:
+            return
+        listing = self.query_one(ComparisonList)
+        counts = {
+            "flagged": int(self.base["flagged"].sum()),
+            "shown": listing.frame.height,
+            "all": self.base.height,
+        }
+        default = self.export_dir / f"{self.data_path.stem}-findings.csv"
+        self.push_screen(ExportScreen(default, counts), self._export_chosen)
+
+    def _export_chosen(self, choice: ExportChoice | None) -> None:
+        if choice is None:
+            return
+        if choice.path.exists():
+            self.push_screen(
+                ConfirmScreen(f"{choice.path} exists. Replace it?"),
+                lambda yes: self._export(choice, overwrite=True) if yes else None,
+            )
+            return
+        self._export(choice, overwrite=False)
+
+    def export_frame(self, rows: str) -> pl.DataFrame:
+        """The rows an export writes: flagged, shown (the filter) or all, with sentences."""
+        if rows == "shown":
+            frame = self.query_one(ComparisonList).frame
+        elif rows == "all":
+            frame = self.base
+        else:
+            frame = self.base.filter(pl.col("flagged"))
+        frame = frame.drop("warning_count")
+        sentences = [finding(row) for row in frame.iter_rows(named=True)]
+        return frame.with_columns(pl.Series("sentence", sentences, dtype=pl.Utf8))
+
+    def _export(self, choice: ExportChoice, *, overwrite: bool) -> None:
+        assert self.result is not None
+        frame = self.export_frame(choice.rows)
+        settings = self.result.metadata() | {
+            "rows_chosen": choice.rows,
+            "filter": self.filter_text,
+            "reviews": str(self.store.path) if self.store else None,
+        }
+        try:
+            written = write_export(frame, choice.path, settings, overwrite=overwrite)
+        except (OSError, ValueError) as error:
+            self._message = f"export failed: {error}"
+        else:
+            self._message = f"exported {frame.height} rows to {written}"
+        self._set_status()
+
+    # -- help -------------------------------------------------------------------------------
+    def action_help(self) -> None:
+        self.push_screen(TextScreen(help_text()))
+
+    def action_about(self) -> None:
+        self.push_screen(TextScreen(about_text()))
+
+    def on_unmount(self) -> None:
+        if self.store is not None:
+            self.store.close()
+
+
+def help_text() -> str:
+    from .filtering import __doc__ as filter_doc
+
+    keys = [
+        ("↑ ↓ / j k, page up/down, home/end", "move through the list"),
+        ("click a column title", "sort on it (again: reverse)"),
+        ("s / r", "sort on the next column / reverse the order"),
+        ("/", "type in the filter line (enter returns to the list)"),
+        ("space", "flag or unflag the highlighted comparison"),
+        ("1 / 2 / 3 / 0", "decision: keep / doubt / drop / none"),
+        ("n", "write a note (ctrl+s saves, escape cancels)"),
+        ("b", "cross-checks: bootstrap CI of the median ratio, Hodges-Lehmann"),
+        ("x", "export flagged, filtered or all rows to CSV"),
+        ("tab", "move between the list, the filter and the detail"),
+        ("?  /  i", "this help / about and cautions"),
+        ("ctrl+q", "quit (every change is already saved)"),
+    ]
+    lines = ["# foldsift keys", "", "| key | does |", "|---|---|"]
+    lines += [f"| {key} | {does} |" for key, does in keys]
+    lines += ["", "# Filter line", "", (filter_doc or "").split("\n\n", 1)[1]]
+    lines += ["", "# Equivalence classes", ""]
+    lines += [f"- **{name}**: {text}" for name, text in BAND_CLASSES.items()]
+    lines += ["", "# Warnings", ""]
+    from foldsift.stats.diagnostics import WARNINGS
+
+    lines += [f"- **{name}**: {text}" for name, text in WARNINGS.items()]
+    return "\n".join(lines)
+
+
+def about_text() -> str:
+    return (
+        "# About foldsift\n\n"
+        "Each comparison is a two-sample t-test on the logs (Welch by default). The ratio is "
+        "exp(mean log b − mean log a), the ratio of geometric means of b over a; it is the "
+        "ratio of medians when each group's logs are symmetric. The CI is exp() of the CI of "
+        "the difference of mean logs. Holm and Benjamini-Hochberg (q) adjust across the family.\n\n"
+        + CAUTIONS
+    )
+
+
+def make_app(
+    data_path: Path,
+    args: argparse.Namespace | None = None,
+    *,
+    reviews: Path | None = None,
+    export_dir: Path | None = None,
+) -> FoldsiftApp:
+    """Build the app from a data file and parsed command-line options (tests call this too)."""
+    from .cli import settings_from
+
+    settings = settings_from(args) if args is not None else ScanSettings()
+    return FoldsiftApp(
+        data_path,
+        settings,
+        groupings=getattr(args, "group", None),
+        outcomes=getattr(args, "outcome", None),
+        reviews=reviews,
+        export_dir=export_dir,
+    )
+
+
+def _finite(value: float | None) -> bool:
+    return value is not None and math.isfinite(value)

@@ -1,0 +1,116 @@
+"""The filter line: plain words and conditions turned into one polars expression.
+
+Words (all must hold; no UI imports here, so it is tested without a terminal):
+
+- any plain word: text search in outcome, grouping and level names (case-insensitive)
+- ``q<0.05``, ``p<=0.01``, ``holm<0.05``, ``ratio>2``, ``ratio<0.5``, ``n>=10``: numeric conditions
+- ``outside:0.8,1.25``: ratio outside the band; ``inside:0.8,1.25``: inside it
+- ``warned`` (any warning), ``clean`` (none), ``warn:log-skew`` (that warning)
+- ``flagged``, ``unflagged``, ``undecided``, ``keep`` / ``doubt`` / ``drop`` (decision),
+  ``noted`` (has a note), ``earlier`` (review made on an earlier version of the data)
+- ``class:equivalent`` (or any equivalence class name)
+- a leading ``-`` negates a word: ``-warn:small-n``
+"""
+
+from __future__ import annotations
+
+import re
+
+import polars as pl
+from foldsift.stats.equivalence import BAND_CLASSES
+from foldsift.stats.reviews import DECISIONS
+
+NUMERIC_FIELDS = {
+    "q": "q_bh",
+    "p": "p_value",
+    "holm": "p_holm",
+    "ratio": "ratio",
+    "change": "percent_change",
+    "n": "n_min",
+    "fold": "ci_fold",
+}
+_CONDITION = re.compile(r"^(?P<field>[a-z]+)\s*(?P<op><=|>=|<|>|=)\s*(?P<value>[-+0-9.eE]+)$")
+_OPERATORS = {
+    "<": lambda c, v: c < v,
+    "<=": lambda c, v: c <= v,
+    ">": lambda c, v: c > v,
+    ">=": lambda c, v: c >= v,
+    "=": lambda c, v: c == v,
+}
+
+
+class FilterError(ValueError):
+    """A word of the filter line that cannot be read; the message says which and why."""
+
+
+def _band(text: str, word: str) -> tuple[float, float]:
+    try:
+        low, high = (float(part) for part in text.split(","))
+    except ValueError:
+        raise FilterError(f"{word!r}: write the band as LOW,HIGH, e.g. outside:0.8,1.25") from None
+    if not 0 < low < high:
+        raise FilterError(f"{word!r}: the band needs 0 < LOW < HIGH")
+    return low, high
+
+
+def _word(word: str) -> pl.Expr:
+    lowered = word.lower()
+    match = _CONDITION.match(lowered)
+    if match:
+        field = match["field"]
+        if field not in NUMERIC_FIELDS:
+            raise FilterError(
+                f"{word!r}: unknown field {field!r}; use one of {', '.join(NUMERIC_FIELDS)}"
+            )
+        try:
+            value = float(match["value"])
+        except ValueError:
+            raise FilterError(f"{word!r}: {match['value']!r} is not a number") from None
+        column = pl.min_horizontal("n_a", "n_b") if field == "n" else pl.col(NUMERIC_FIELDS[field])
+        return _OPERATORS[match["op"]](column, value).fill_null(False)
+    if lowered.startswith(("outside:", "inside:")):
+        kind, _, text = lowered.partition(":")
+        low, high = _band(text, word)
+        outside = (pl.col("ratio") < low) | (pl.col("ratio") > high)
+        return (outside if kind == "outside" else ~outside).fill_null(False)
+    if lowered.startswith("warn:"):
+        name = lowered[5:]
+        return pl.col("warnings").str.split(";").list.contains(name).fill_null(False)
+    if lowered.startswith("class:"):
+        name = lowered[6:]
+        if name not in BAND_CLASSES:
+            raise FilterError(f"{word!r}: classes are {', '.join(BAND_CLASSES)}")
+        return pl.col("band_class") == name
+    simple = {
+        "warned": pl.col("warnings") != "",
+        "clean": pl.col("warnings") == "",
+        "flagged": pl.col("flagged"),
+        "unflagged": ~pl.col("flagged"),
+        "undecided": pl.col("decision").is_null(),
+        "noted": pl.col("note") != "",
+        "earlier": pl.col("on_earlier_data"),
+    }
+    if lowered in simple:
+        return simple[lowered].fill_null(False)
+    if lowered in DECISIONS:
+        return (pl.col("decision") == lowered).fill_null(False)
+    if any(symbol in lowered for symbol in "<>="):
+        raise FilterError(f"{word!r}: write conditions like q<0.05 or ratio>2")
+    return (
+        pl.col("outcome").str.to_lowercase().str.contains(lowered, literal=True)
+        | pl.col("grouping").str.to_lowercase().str.contains(lowered, literal=True)
+        | pl.col("level_a").str.to_lowercase().str.contains(lowered, literal=True)
+        | pl.col("level_b").str.to_lowercase().str.contains(lowered, literal=True)
+    )
+
+
+def parse_filter(text: str) -> pl.Expr | None:
+    """One expression for the whole line (None when the line is empty)."""
+    expression: pl.Expr | None = None
+    for word in text.split():
+        negate = word.startswith("-") and len(word) > 1 and not word[1].isdigit()
+        part = _word(word[1:] if negate else word)
+        if negate:
+            part = ~part
+        expression = part if expression is None else expression & part
+    return expression
