@@ -60,11 +60,13 @@ def detectable_ratio(
     if method != "t":
         raise ValueError("method must be 't' or 'normal'")
     df = np.where(valid, n_a + n_b - 2, 2.0)
+    # The noncentrality that gives the power depends on df alone: solve once per distinct df.
+    distinct, inverse = np.unique(df, return_inverse=True)
     ncp = _bisect(
-        lambda x: _power(x, df, alpha) - power,
-        np.zeros_like(df),
-        np.full_like(df, 60.0),
-    )
+        lambda x: _power(x, distinct, alpha) - power,
+        np.zeros_like(distinct),
+        np.full_like(distinct, 60.0),
+    )[inverse]
     return np.where(valid, np.exp(ncp * scale), np.nan)
 
 

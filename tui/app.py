@@ -9,15 +9,13 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import polars as pl
-from foldsift.stats.diagnostics import explain
 from foldsift.stats.equivalence import BAND_CLASSES
 from foldsift.stats.export import join_reviews, write_export
 from foldsift.stats.load import InputError, load_table
 from foldsift.stats.reviews import ReviewStore, ReviewStoreError, default_review_path
 from foldsift.stats.robust import GroupValues, RobustCheck, robust_check
 from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
-from foldsift.stats.sentence import finding, number, p_text, ratio_text, readable_outcome
-from rich.table import Table as RichTable
+from foldsift.stats.sentence import finding, readable_outcome
 from rich.text import Text
 from textual import on, work
 from textual.app import App, ComposeResult
@@ -37,7 +35,8 @@ from .screens.dialogs import (
     TextScreen,
 )
 from .widgets.comparison_list import COLUMNS, ComparisonList
-from .widgets.histograms import STYLE_A, STYLE_B, back_to_back
+from .widgets.facts import facts_text
+from .widgets.histograms import back_to_back
 
 SORTABLE = [column.sort_on for column in COLUMNS]
 SORT_NAMES = {column.sort_on: column.title for column in COLUMNS} | {
@@ -114,6 +113,7 @@ class FoldsiftApp(App[int]):
         self._values: GroupValues | None = None
         self._plot_timer: Timer | None = None
         self._message = ""
+        self._facts_lines = -1
 
     # -- layout -----------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -126,11 +126,7 @@ class FoldsiftApp(App[int]):
         with Horizontal(id="detail"):
             with VerticalScroll(id="facts"):
                 yield Static("", id="sentence")
-                yield Static("", id="numbers")
-                yield Static("", id="warnings")
-            with VerticalScroll(id="plots"):
-                yield Static("", id="plot-raw")
-                yield Static("", id="plot-log")
+            yield Static("", id="plots")
         yield Footer()
 
     def on_mount(self) -> None:
@@ -299,129 +295,42 @@ class FoldsiftApp(App[int]):
     def _show_facts(self) -> None:
         row = self._current()
         sentence = self.query_one("#sentence", Static)
-        numbers = self.query_one("#numbers", Static)
-        warnings = self.query_one("#warnings", Static)
         if row is None:
             sentence.update(Text("No comparison matches the filter.", style="italic"))
-            numbers.update("")
-            warnings.update("")
             return
-        sentence.update(Text(finding(row), style="bold"))
-        numbers.update(self._numbers_table(row))
-        lines = Text()
-        for name, text in explain(row["warnings"]):
-            lines.append(f"! {name}", style="bold yellow")
-            lines.append(f"  {text}\n")
-        if not row["warnings"]:
-            lines.append("no warnings\n", style="green")
-        review = []
-        if row.get("decision"):
-            review.append(f"decision: {row['decision']}")
-        if row.get("flagged"):
-            review.append("flagged")
-        if row.get("on_earlier_data"):
-            review.append("review made on an earlier version of the data file")
-        if review:
-            lines.append(" · ".join(review) + "\n", style="bold")
-        if row.get("note"):
-            lines.append("note: ", style="bold")
-            lines.append(row["note"] + "\n")
-        warnings.update(lines)
-
-    def _numbers_table(self, row: dict) -> RichTable:
-        table = RichTable(box=None, padding=(0, 1), show_header=True, header_style="bold")
-        table.add_column("")
-        table.add_column(f"a: {row['level_a']}", style=STYLE_A)
-        table.add_column(f"b: {row['level_b']}", style=STYLE_B)
-
-        def pair(label: str, name: str, fmt=number) -> None:
-            table.add_row(label, fmt(row.get(name + "_a")), fmt(row.get(name + "_b")))
-
-        counts = lambda value: "–" if value is None else str(value)  # noqa: E731
-        pair("n used", "n", counts)
-        pair("left out", "n_excluded", counts)
-        pair("substituted", "n_substituted", counts)
-        pair("below detection", "n_censored", counts)
-        pair("geometric mean", "gm")
-        pair("median", "median")
-        pair("log SD", "sd_log")
-        pair("skew (logs)", "skew_log")
-        pair("skew (raw)", "skew_raw")
-        pair("Shapiro-Wilk p (logs)", "shapiro_p", p_text)
-        level = round(100 * row["confidence"])
-        test = "Welch" if row["test"] == "welch" else "pooled"
-        table.add_row("", "", "")
-        table.add_row(
-            "ratio b/a (GM)",
-            ratio_text(row["ratio"]),
-            f"{level}% CI {ratio_text(row['ci_low'])}–{ratio_text(row['ci_high'])}",
-        )
-        table.add_row(
-            "ratio of medians",
-            ratio_text(row["median_ratio"]),
-            f"change {number(row['percent_change'])}%",
-        )
-        table.add_row(
-            "log2 ratio", number(row.get("log2_ratio")), f"df {number(row.get('df'))} ({test})"
-        )
-        table.add_row(
-            "p", p_text(row["p_value"]), f"Holm {p_text(row['p_holm'])}  q {p_text(row['q_bh'])}"
-        )
-        band = self.settings.band
-        table.add_row(
-            f"band {band[0]:g}–{band[1]:g}",
-            row.get("band_class") or "–",
-            f"90% CI {ratio_text(row.get('tost_ci_low'))}–{ratio_text(row.get('tost_ci_high'))}",
-        )
-        table.add_row(
-            "CI width (hi/lo)",
-            number(row.get("ci_fold")),
-            f"detectable {ratio_text(row.get('detectable_ratio'))}× (80% power)",
-        )
-        check = self.robust.get(row["key"])
-        if check is not None:
-            table.add_row(
-                "bootstrap medians",
-                f"{ratio_text(check.median_ratio_ci_low)}–{ratio_text(check.median_ratio_ci_high)}",
-                "BCa CI of median ratio",
-            )
-            table.add_row(
-                "Hodges-Lehmann",
-                ratio_text(check.hl_ratio),
-                f"CI {ratio_text(check.hl_ci_low)}–{ratio_text(check.hl_ci_high)}, Mann-Whitney {p_text(check.mann_whitney_p, 'p')}",
-            )
+        text = facts_text(row, self.settings.band, self.robust.get(row["key"]))
+        # A layout pass costs more than the paint: only ask for one when the height changes.
+        width = max(sentence.size.width, 20)
+        lines = len(text.wrap(self.console, width))
+        if lines != self._facts_lines:
+            self._facts_lines = lines
+            sentence.styles.height = lines
+            sentence.update(text)
         else:
-            table.add_row("cross-checks", "press b", "bootstrap and Hodges-Lehmann")
-        return table
+            sentence.update(text, layout=False)
 
     def _show_plots(self) -> None:
         row = self._current()
-        raw = self.query_one("#plot-raw", Static)
-        log = self.query_one("#plot-log", Static)
+        plots = self.query_one("#plots", Static)
         if row is None or self._values is None:
-            raw.update("")
-            log.update("")
+            plots.update("", layout=False)
             return
         a = self._values.values(row["grouping"], row["level_a"], row["outcome"])
         b = self._values.values(row["grouping"], row["level_b"], row["outcome"])
-        plots = self.query_one("#plots")
-        width = max(plots.size.width - 2, 30)
-        height = max((plots.size.height - 1) // 2, 8)
+        width = max(plots.size.width - 1, 30)
+        height = max(plots.size.height // 2, 7)
         name = readable_outcome(row["outcome"])
-        legend = f"{name}: ▲ b {row['level_b']} · ▼ a {row['level_a']} · lines GM, + median"
-        raw.update(
-            back_to_back(a, b, log_scale=False, width=width, height=height, title="raw  " + legend)
+        legend = f"{name}: ▲ b {row['level_b']} · ▼ a {row['level_a']}"
+        raw = back_to_back(a, b, log_scale=False, width=width, height=height, title=legend)
+        log = back_to_back(
+            a,
+            b,
+            log_scale=True,
+            width=width,
+            height=height,
+            title="log scale (ticks in raw units) · lines: GM, + median",
         )
-        log.update(
-            back_to_back(
-                a,
-                b,
-                log_scale=True,
-                width=width,
-                height=height,
-                title="log scale (ticks in raw units)",
-            )
-        )
+        plots.update(Text.assemble(raw, "\n", log), layout=False)
 
     # -- reviewing --------------------------------------------------------------------------
     def _changed(self, key: str) -> None:

@@ -1,0 +1,92 @@
+"""Benchmark (a script, not a test): how fast the review app answers with ~10,000 comparisons.
+
+Builds a synthetic table (15 levels -> 105 pairs, times 96 outcomes = 10,080 comparisons),
+opens the app headless through Textual's Pilot, and times cursor moves, page moves,
+re-sorts, filter changes and a flag, each measured from the key press until the app has
+processed it and repainted (``pilot.pause()``). Prints median and worst times.
+
+    python tests/bench_list.py [--outcomes 96] [--levels 15] [--repeats 30]
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import statistics
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import polars as pl
+
+from foldsift.stats.scan import ScanSettings
+from foldsift.tui.app import FoldsiftApp
+
+
+def synthetic_csv(folder: Path, outcomes: int, levels: int, per_level: int = 12) -> Path:
+    rng = np.random.default_rng(7)
+    rows = levels * per_level
+    data = {"site": np.repeat([f"site_{i:02d}" for i in range(levels)], per_level)}
+    for j in range(outcomes):
+        data[f"analyte_{j:03d}_mg_per_kg"] = rng.lognormal(rng.normal(0, 0.3, rows), 0.6)
+    path = folder / "bench_wide.csv"
+    pl.DataFrame(data).write_csv(path)
+    return path
+
+
+async def measure(path: Path, repeats: int) -> dict[str, list[float]]:
+    app = FoldsiftApp(
+        path, ScanSettings(), reviews=path.with_suffix(".sqlite"), export_dir=path.parent
+    )
+    timings: dict[str, list[float]] = {}
+    async with app.run_test(size=(120, 36)) as pilot:
+        start = time.perf_counter()
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        timings["open and scan (once)"] = [time.perf_counter() - start]
+        rows = app.base.height
+        print(f"comparisons in the list: {rows}")
+
+        async def timed(name: str, *keys: str) -> None:
+            start = time.perf_counter()
+            await pilot.press(*keys)
+            await pilot.pause()
+            timings.setdefault(name, []).append(time.perf_counter() - start)
+
+        for _ in range(repeats):
+            await timed("cursor down", "down")
+        for _ in range(repeats):
+            await timed("page down", "pagedown")
+        for _ in range(max(repeats // 3, 5)):
+            await timed("re-sort (next column)", "s")
+            await timed("reverse order", "r")
+        for _ in range(max(repeats // 3, 5)):
+            await timed("flag", "space")
+        await pilot.press("slash")
+        for text in ("q", "<", "0", ".", "0", "5"):
+            await timed("filter keystroke", text)
+        await pilot.press("enter")
+    return timings
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--outcomes", type=int, default=96)
+    parser.add_argument("--levels", type=int, default=15)
+    parser.add_argument("--repeats", type=int, default=30)
+    args = parser.parse_args()
+    with tempfile.TemporaryDirectory() as folder:
+        path = synthetic_csv(Path(folder), args.outcomes, args.levels)
+        timings = asyncio.run(measure(path, args.repeats))
+    print(f"{'action':28s} {'n':>4s} {'median ms':>10s} {'worst ms':>9s}")
+    for name, values in timings.items():
+        print(
+            f"{name:28s} {len(values):4d} {1000 * statistics.median(values):10.1f} "
+            f"{1000 * max(values):9.1f}"
+        )
+    print("target: each repaint after a move or re-sort well under 100 ms")
+
+
+if __name__ == "__main__":
+    main()
