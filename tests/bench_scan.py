@@ -31,10 +31,11 @@ import time
 import numpy as np
 import pandas as pd
 import polars as pl
+from scipy import stats as sps
+
 from foldsift.stats.load import load_table
 from foldsift.stats.robust import robust_all
 from foldsift.stats.scan import ScanSettings, run_scan
-from scipy import stats as sps
 
 GROUP = "site"
 TARGET_SPEEDUP = 20.0

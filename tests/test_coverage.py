@@ -16,6 +16,7 @@ import math
 
 import numpy as np
 import pytest
+
 from foldsift.stats import precision, robust
 from foldsift.stats.ttest import log_t_test
 

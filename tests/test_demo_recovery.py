@@ -24,6 +24,7 @@ finding that matters there is the spread difference, checked separately below.
 from __future__ import annotations
 
 import math
+
 import polars as pl
 import pytest
 

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import polars as pl
 import pytest
+
 from foldsift.stats import export as export_mod
 from foldsift.stats.export import join_reviews, select_rows, settings_path, write_export
 from foldsift.stats.reviews import ReviewStore

@@ -57,7 +57,7 @@ def test_bh_1995_example_holm_is_at_least_bonferroni():
     """Benjamini & Hochberg 1995: Bonferroni (threshold 0.05/15) rejects 3 (published; this
     also checks the p-values were copied right). Holm 1979: Holm's adjusted p never
     exceeds the Bonferroni-adjusted min(1, m p), so it rejects at least those."""
-    assert int((BH_1995 <= 0.05 / BH_1995.size).sum()) == 3
+    assert int((0.05 / BH_1995.size >= BH_1995).sum()) == 3
     holm, _ = adjust(BH_1995)
     assert np.all(holm <= np.minimum(1.0, BH_1995.size * BH_1995) + 1e-15)
 

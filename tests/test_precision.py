@@ -22,10 +22,11 @@ import math
 
 import numpy as np
 import pytest
-from foldsift.stats import precision
 from scipy import integrate, optimize, special
 from scipy import stats as sps
 from statsmodels.stats.power import TTestIndPower
+
+from foldsift.stats import precision
 
 POWER = TTestIndPower()
 DESIGNS = [(2, 2, 1.0), (3, 30, 0.8), (5, 5, 0.5), (10, 20, 1.0), (50, 50, 0.3), (200, 100, 0.7)]

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import polars as pl
 import pytest
+
 from foldsift.stats import reviews as reviews_mod
 from foldsift.stats.reviews import (
     DECISIONS,

@@ -21,10 +21,11 @@ import math
 import numpy as np
 import polars as pl
 import pytest
+from scipy import stats as sps
+
 from foldsift.stats import robust
 from foldsift.stats.load import load_table
 from foldsift.stats.scan import run_scan
-from scipy import stats as sps
 
 
 def _brute_hl(x: np.ndarray, y: np.ndarray, confidence: float = 0.95):

@@ -9,13 +9,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import polars as pl
-from foldsift.stats.equivalence import BAND_CLASSES
-from foldsift.stats.export import join_reviews, write_export
-from foldsift.stats.load import InputError, load_table
-from foldsift.stats.reviews import ReviewStore, ReviewStoreError, default_review_path
-from foldsift.stats.robust import GroupValues, RobustCheck, robust_check
-from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
-from foldsift.stats.sentence import finding, readable_outcome
 from rich.text import Text
 from textual import on, work
 from textual.app import App, ComposeResult
@@ -24,6 +17,14 @@ from textual.containers import Horizontal, VerticalScroll
 from textual.message import Message
 from textual.timer import Timer
 from textual.widgets import Footer, Input, Static
+
+from foldsift.stats.equivalence import BAND_CLASSES
+from foldsift.stats.export import join_reviews, write_export
+from foldsift.stats.load import InputError, load_table
+from foldsift.stats.reviews import ReviewStore, ReviewStoreError, default_review_path
+from foldsift.stats.robust import GroupValues, RobustCheck, robust_check
+from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
+from foldsift.stats.sentence import finding, readable_outcome
 
 from .filtering import FilterError, parse_filter
 from .screens.dialogs import (

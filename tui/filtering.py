@@ -17,6 +17,7 @@ from __future__ import annotations
 import re
 
 import polars as pl
+
 from foldsift.stats.equivalence import BAND_CLASSES
 from foldsift.stats.reviews import DECISIONS
 

@@ -11,7 +11,6 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import polars as pl
-from foldsift.stats.sentence import readable_outcome
 from rich.segment import Segment
 from textual import events
 from textual.binding import Binding
@@ -20,6 +19,8 @@ from textual.message import Message
 from textual.reactive import reactive
 from textual.scroll_view import ScrollView
 from textual.strip import Strip
+
+from foldsift.stats.sentence import readable_outcome
 
 
 def _ratio(value: float | None) -> str:

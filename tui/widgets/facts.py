@@ -4,10 +4,11 @@ repaint cheap when the cursor moves."""
 
 from __future__ import annotations
 
+from rich.text import Text
+
 from foldsift.stats.diagnostics import explain
 from foldsift.stats.robust import RobustCheck
 from foldsift.stats.sentence import finding, number, p_text, ratio_text
-from rich.text import Text
 
 from .histograms import STYLE_A, STYLE_B
 
