@@ -136,6 +136,10 @@ def _write_temp(target: Path, write: Callable[[BinaryIO], object]) -> Path:
     # Same folder as the target, so os.replace is a rename within one filesystem.
     fd, name = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".tmp")
     tmp = Path(name)
+    # mkstemp makes the file private (0600); an export is for colleagues: use the umask.
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         with os.fdopen(fd, "wb") as fh:
             write(fh)

@@ -83,8 +83,8 @@ def finding(row: dict) -> str:
         text += " The interval includes 1: no clear difference."
     if doubtful:
         text += (
-            " Read as a ratio of geometric means, not medians: "
+            " Read it as a ratio of geometric means, not of medians (see the warnings: "
             + ", ".join(doubtful)
-            + " (the log scale may not be symmetric)."
+            + ")."
         )
     return text

@@ -12,8 +12,8 @@ Accuracy is the log relative error, LRE = -log10(|computed - certified| / |certi
 the measure NIST's StRD uses; LRE >= 9 means at least 9 correct significant digits.
 
 NumAcc3 and NumAcc4 hold decimals that a double cannot hold exactly: 1000000.1 and
-10000000.1 are stored with errors up to half a unit in the last place (2**-33 and 2**-29,
-about 1.2e-10 and 9.3e-10), which is ~1e-9 and ~1e-8 of the 0.1 deviations. Even exact
+10000000.1 are stored with errors up to half a unit in the last place (2**-34 and 2**-30,
+about 5.8e-11 and 9.3e-10), which is up to ~6e-10 and ~9e-9 of the 0.1 deviations. Even exact
 arithmetic on the stored doubles then gives the SD to only ~9.5 (NumAcc3) and ~8.3 (NumAcc4)
 digits. So the SD is checked two ways: against the certified value (LRE >= 9 where doubles
 allow it, >= 8 for NumAcc4), and against the exact SD of the doubles actually stored

@@ -14,6 +14,7 @@ from textual import on, work
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, VerticalScroll
+from textual.css.query import NoMatches
 from textual.message import Message
 from textual.timer import Timer
 from textual.widgets import Footer, Input, Static
@@ -115,6 +116,7 @@ class FoldsiftApp(App[int]):
         self._plot_timer: Timer | None = None
         self._message = ""
         self._facts_lines = -1
+        self.error_text: str | None = None
 
     # -- layout -----------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -165,12 +167,16 @@ class FoldsiftApp(App[int]):
         self.base = self._with_reviews(self.result.comparisons)
         self._apply_view()
         earlier = int(self.base["on_earlier_data"].sum())
+        self._message = f"reviews are saved as you go in {self.store.path}"
         if earlier:
-            self._message = f"{earlier} review(s) were made on an earlier version of the data (shown in italics)"
+            self._message += (
+                f"; {earlier} review(s) were made on an earlier version of the data (italics)"
+            )
         self._set_status()
 
     def _show_error(self, text: str) -> None:
         self._message = text
+        self.error_text = text
         self.query_one("#status", Static).update(
             Text(text + "  — press ctrl+q to quit", style="bold red")
         )
@@ -187,16 +193,16 @@ class FoldsiftApp(App[int]):
 
     # -- view: sort and filter --------------------------------------------------------------
     def _apply_view(self, keep_key: str | None = None) -> None:
+        """Filter and sort the base frame; the cursor stays on keep_key, else goes to the top."""
         listing = self.query_one(ComparisonList)
-        keep_key = keep_key or listing.current_key
         frame = self.base
         try:
             expression = parse_filter(self.filter_text)
         except FilterError as error:
-            self._message = f"filter: {error}"
+            self._message = f"filter not applied: {error}"
             expression = None
         else:
-            if self._message.startswith("filter:"):
+            if self._message.startswith("filter not applied:"):
                 self._message = ""
         if expression is not None:
             frame = frame.filter(expression)
@@ -232,7 +238,8 @@ class FoldsiftApp(App[int]):
             (self.filter_text or "none", "bold"),
         )
         if self._message:
-            line.append("  · " + self._message, style="italic")
+            alarm = self._message.startswith(("filter not applied", "NOT SAVED", "export failed"))
+            line.append("\n" + self._message, style="bold red" if alarm else "italic")
         status.update(line)
 
     @on(Input.Changed, "#filter")
@@ -288,6 +295,8 @@ class FoldsiftApp(App[int]):
 
     @on(ComparisonList.Highlighted)
     def highlighted(self, message: ComparisonList.Highlighted) -> None:
+        if self.store is None:  # still scanning, or opening failed: keep the message shown
+            return
         self._show_facts()
         if self._plot_timer is not None:
             self._plot_timer.stop()
@@ -311,8 +320,11 @@ class FoldsiftApp(App[int]):
             sentence.update(text, layout=False)
 
     def _show_plots(self) -> None:
-        row = self._current()
-        plots = self.query_one("#plots", Static)
+        try:
+            row = self._current()
+            plots = self.query_one("#plots", Static)
+        except NoMatches:  # the timer fired while the app was closing
+            return
         if row is None or self._values is None:
             plots.update("", layout=False)
             return
@@ -342,6 +354,8 @@ class FoldsiftApp(App[int]):
             "decision": review.decision if review else None,
             "note": review.note if review else "",
             "on_earlier_data": review.on_earlier_data if review else False,
+            "review_fingerprint": review.fingerprint if review else None,
+            "updated_at": review.updated_at if review else None,
         }
         match = pl.col("key") == key
         self.base = self.base.with_columns(
@@ -495,7 +509,7 @@ class FoldsiftApp(App[int]):
         except (OSError, ValueError) as error:
             self._message = f"export failed: {error}"
         else:
-            self._message = f"exported {frame.height} rows to {written}"
+            self._message = f"exported {frame.height} row(s) to {written}"
         self._set_status()
 
     # -- help -------------------------------------------------------------------------------
@@ -504,6 +518,10 @@ class FoldsiftApp(App[int]):
 
     def action_about(self) -> None:
         self.push_screen(TextScreen(about_text()))
+
+    async def action_quit(self) -> None:
+        """Quit; the exit status is 2 when the data could not be opened (as for scan)."""
+        self.exit(2 if self.error_text else 0)
 
     def on_unmount(self) -> None:
         if self.store is not None:

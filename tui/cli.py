@@ -141,10 +141,20 @@ def _fail(message: str) -> int:
     return EXIT_BAD_INPUT
 
 
+def _check_out(path: Path | None) -> None:
+    if path is not None and not path.parent.exists():
+        raise InputError(
+            f"{path}: folder {path.parent} does not exist; create it or choose another"
+        )
+    if path is not None and path.is_dir():
+        raise InputError(f"{path}: is a folder; give a file name for the CSV")
+
+
 def command_scan(args: argparse.Namespace) -> int:
     from foldsift.stats.robust import robust_all
     from foldsift.stats.sentence import finding
 
+    _check_out(args.out)
     result = load_and_scan(args)
     table = result.table
     print(
@@ -182,6 +192,10 @@ def pl_sentences(frame, finding):
 
 
 def _progress_bar(done: int, total: int) -> None:
+    if not sys.stderr.isatty():
+        if done == total or done % max(total // 10, 1) < 10:
+            print(f"robust checks {done}/{total}", file=sys.stderr, flush=True)
+        return
     width = 30
     filled = width * done // max(total, 1)
     print(
@@ -197,6 +211,8 @@ def command_review(args: argparse.Namespace) -> int:
 
     app = make_app(data_path(args), args, reviews=args.reviews)
     app.run()
+    if app.error_text:
+        print(f"foldsift: {app.error_text}", file=sys.stderr)
     return app.return_code or 0
 
 
@@ -205,6 +221,7 @@ def command_export(args: argparse.Namespace) -> int:
     from foldsift.stats.reviews import ReviewStore, default_review_path
     from foldsift.stats.sentence import finding
 
+    _check_out(args.out)
     result = load_and_scan(args)
     path = args.reviews or default_review_path(data_path(args))
     if not Path(path).exists():

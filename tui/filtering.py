@@ -1,6 +1,8 @@
 """The filter line: plain words and conditions turned into one polars expression.
 
-Words (all must hold; no UI imports here, so it is tested without a terminal):
+This module imports nothing from Textual, so it is tested without a terminal.
+
+Words, separated by spaces; a row is shown when all of them hold:
 
 - any plain word: text search in outcome, grouping and level names (case-insensitive)
 - ``q<0.05``, ``p<=0.01``, ``holm<0.05``, ``ratio>2``, ``ratio<0.5``, ``n>=10``: numeric conditions
@@ -8,7 +10,8 @@ Words (all must hold; no UI imports here, so it is tested without a terminal):
 - ``warned`` (any warning), ``clean`` (none), ``warn:log-skew`` (that warning)
 - ``flagged``, ``unflagged``, ``undecided``, ``keep`` / ``doubt`` / ``drop`` (decision),
   ``noted`` (has a note), ``earlier`` (review made on an earlier version of the data)
-- ``class:equivalent`` (or any equivalence class name)
+- ``class:equivalent``, or the class name alone (``different``, ``minor-difference``,
+  ``equivalent``, ``inconclusive``)
 - a leading ``-`` negates a word: ``-warn:small-n``
 """
 
@@ -18,6 +21,7 @@ import re
 
 import polars as pl
 
+from foldsift.stats.diagnostics import WARNINGS
 from foldsift.stats.equivalence import BAND_CLASSES
 from foldsift.stats.reviews import DECISIONS
 
@@ -76,6 +80,9 @@ def _word(word: str) -> pl.Expr:
         return (outside if kind == "outside" else ~outside).fill_null(False)
     if lowered.startswith("warn:"):
         name = lowered[5:]
+        if name not in WARNINGS:
+            # A misspelt name would otherwise match nothing and look like "no such warnings".
+            raise FilterError(f"{word!r}: warnings are {', '.join(WARNINGS)}")
         return pl.col("warnings").str.split(";").list.contains(name).fill_null(False)
     if lowered.startswith("class:"):
         name = lowered[6:]
@@ -93,6 +100,8 @@ def _word(word: str) -> pl.Expr:
     }
     if lowered in simple:
         return simple[lowered].fill_null(False)
+    if lowered in BAND_CLASSES:
+        return pl.col("band_class") == lowered
     if lowered in DECISIONS:
         return (pl.col("decision") == lowered).fill_null(False)
     if any(symbol in lowered for symbol in "<>="):

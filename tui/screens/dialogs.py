@@ -72,12 +72,18 @@ class ExportScreen(ModalScreen[ExportChoice | None]):
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
             yield Label("Export comparisons to CSV", classes="dialog-title")
+            # Flagged rows by default; with nothing flagged yet, the rows the filter shows.
+            none_flagged = self._counts["flagged"] == 0
             with RadioSet(id="export-rows"):
                 yield RadioButton(
-                    f"flagged rows ({self._counts['flagged']})", value=True, id="rows-flagged"
+                    f"flagged rows ({self._counts['flagged']})",
+                    value=not none_flagged,
+                    id="rows-flagged",
                 )
                 yield RadioButton(
-                    f"rows shown by the filter ({self._counts['shown']})", id="rows-shown"
+                    f"rows shown by the filter ({self._counts['shown']})",
+                    value=none_flagged,
+                    id="rows-shown",
                 )
                 yield RadioButton(f"all rows ({self._counts['all']})", id="rows-all")
             yield Label("File name:")

@@ -236,7 +236,8 @@ class ComparisonList(ScrollView, can_focus=True):
             title = column.title
             is_sorted = column.sort_on == self.sort_on
             if is_sorted:
-                title = f"{title}{'↓' if self.descending else '↑'}"
+                # Shorten the title, not the arrow, when the column is narrow.
+                title = title[: column.width - 1] + ("↓" if self.descending else "↑")
             segments.append(Segment(_cell(title, column), sorted_style if is_sorted else base))
             if index < len(COLUMNS) - 1:
                 segments.append(Segment(SEPARATOR, base))
