@@ -72,6 +72,19 @@ def file_fingerprint(path: Path) -> str:
     return digest.hexdigest()
 
 
+def frame_fingerprint(frame: pl.DataFrame) -> str:
+    """SHA-256 over each column's name, type and values (an in-memory frame has no file)."""
+    digest = hashlib.sha256()
+    for name, series in frame.to_dict().items():
+        digest.update(f"{name}\x00{series.dtype}\x00".encode())
+        digest.update(series.is_null().to_numpy().tobytes())
+        if series.dtype.is_numeric() or series.dtype == pl.Boolean:
+            digest.update(series.fill_null(0).to_numpy().tobytes())
+        else:
+            digest.update("\x00".join(series.cast(pl.Utf8).fill_null("").to_list()).encode())
+    return digest.hexdigest()
+
+
 def _sniff_separator(sample: str, suffix: str) -> str:
     if suffix in (".tsv", ".tab"):
         return "\t"
@@ -184,9 +197,13 @@ def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
     outcomes: list[str] = []
     string_columns = [n for n, t in frame.schema.items() if t in (pl.Utf8, pl.Categorical)]
     shares = _numeric_share(frame.select(string_columns)) if string_columns else {}
-    levels = frame.select(pl.all().drop_nulls().n_unique()).row(0, named=True)
+    # Float columns are outcomes whatever their count of distinct values: skip counting them.
+    counted = [n for n, t in frame.schema.items() if not t.is_float()]
+    levels = (
+        frame.select(pl.col(counted).drop_nulls().n_unique()).row(0, named=True) if counted else {}
+    )
     for name, dtype in frame.schema.items():
-        distinct = levels[name]
+        distinct = levels.get(name, 0)
         if name in shares and shares[name] >= NUMERIC_SHARE:
             text_values = frame[name].drop_nulls().str.strip_chars()
             integer_like = text_values.str.contains(r"^-?\d+$").all()
@@ -226,7 +243,7 @@ def load_table(
         fingerprint = file_fingerprint(path)
     else:
         raw = frame
-        fingerprint = hashlib.sha256(frame.write_csv().encode()).hexdigest()
+        fingerprint = frame_fingerprint(frame)
         path = Path(path) if path is not None else None
     label = str(path) if path is not None else "table"
     if raw.height == 0:
@@ -238,7 +255,10 @@ def load_table(
                 raise InputError(
                     f"{label}: no column named {name!r} (asked for as {role}); columns are: {shown}"
                 )
-    guessed_groups, guessed_outcomes = infer_roles(raw)
+    if groupings and outcomes:
+        guessed_groups, guessed_outcomes = list(groupings), list(outcomes)
+    else:
+        guessed_groups, guessed_outcomes = infer_roles(raw)
     if groupings:
         chosen_groups = list(groupings)
     else:

@@ -17,8 +17,11 @@ from scipy import stats as sps
 DEFAULT_POWER = 0.80
 
 
-def _power(ncp: np.ndarray, df: np.ndarray, alpha: float) -> np.ndarray:
-    critical = sps.t.ppf(1 - alpha / 2, df)
+def _power(
+    ncp: np.ndarray, df: np.ndarray, alpha: float, critical: np.ndarray | None = None
+) -> np.ndarray:
+    if critical is None:
+        critical = sps.t.ppf(1 - alpha / 2, df)
     # Lower tail P(T' < -c; ncp) as P(T' > c; -ncp) (T'(ncp) and -T'(-ncp) have one law):
     # scipy's nct.cdf returns NaN far in that tail (e.g. df 98, ncp 10), which broke the
     # bisection; nct.sf does not.
@@ -62,10 +65,13 @@ def detectable_ratio(
     df = np.where(valid, n_a + n_b - 2, 2.0)
     # The noncentrality that gives the power depends on df alone: solve once per distinct df.
     distinct, inverse = np.unique(df, return_inverse=True)
+    critical = sps.t.ppf(1 - alpha / 2, distinct)  # fixed during the search: compute once
+    # 52 halvings of [0, 60] leave an interval of about 1e-14.
     ncp = _bisect(
-        lambda x: _power(x, distinct, alpha) - power,
+        lambda x: _power(x, distinct, alpha, critical) - power,
         np.zeros_like(distinct),
         np.full_like(distinct, 60.0),
+        iterations=52,
     )[inverse]
     return np.where(valid, np.exp(ncp * scale), np.nan)
 

@@ -28,6 +28,8 @@ SUMMARY_SCHEMA = {
     "skew_raw": pl.Float64,
 }
 
+LOG = "__log"  # the log of the used value, computed once per outcome before aggregating
+
 _STATS = [name for name in SUMMARY_SCHEMA if name not in ("grouping", "level", "outcome")]
 
 
@@ -42,7 +44,7 @@ def mean_and_sum_of_squares(values: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
 
 def _aggregations(outcome: str) -> list[pl.Expr]:
     used = pl.col(outcome + USED)
-    logs = used.log()
+    logs = pl.col(outcome + LOG)
     mean_log, ss_log = mean_and_sum_of_squares(logs)
     prefix = outcome + "\x00"
     return [
@@ -66,6 +68,7 @@ def group_summaries(
     aggregations = [expr for outcome in outcomes for expr in _aggregations(outcome)]
     plans = [
         frame.lazy()
+        .with_columns([pl.col(o + USED).log().alias(o + LOG) for o in outcomes])
         .filter(pl.col(grouping).is_not_null())
         .group_by(grouping)
         .agg(aggregations)

@@ -24,6 +24,7 @@ import dataclasses
 import gc
 import io
 import math
+import os
 import pstats
 import sys
 import time
@@ -96,32 +97,35 @@ def make_columns(
 
 
 def foldsift_once(frame: pl.DataFrame, outcomes: list[str]):
-    gc.collect()
+    """One load + scan: (result, load seconds, scan seconds, process CPU seconds)."""
+    cpu = time.process_time()
     start = time.perf_counter()
     table = load_table(frame=frame, groupings=[GROUP], outcomes=outcomes)
     loaded = time.perf_counter()
     result = run_scan(table, ScanSettings(confidence=CONFIDENCE))
     done = time.perf_counter()
-    return result, loaded - start, done - loaded
+    return result, loaded - start, done - loaded, time.process_time() - cpu
 
 
 def time_foldsift(frame: pl.DataFrame, outcomes: list[str], repeats: int):
     loads, scans, totals = [], [], []
     result = None
     for run in range(1, repeats + 1):
-        result, load_seconds, scan_seconds = foldsift_once(frame, outcomes)
+        gc.collect()
+        result, load_seconds, scan_seconds, cpu_seconds = foldsift_once(frame, outcomes)
         loads.append(load_seconds)
         scans.append(scan_seconds)
         totals.append(load_seconds + scan_seconds)
         print(
             f"  run {run}: load/typing {load_seconds:8.3f} s   scan {scan_seconds:8.3f} s   "
-            f"total {load_seconds + scan_seconds:8.3f} s",
+            f"total {load_seconds + scan_seconds:8.3f} s   (CPU {cpu_seconds:.3f} s)",
             flush=True,
         )
     return result, min(loads), min(scans), min(totals)
 
 
 def profile_foldsift(frame: pl.DataFrame, outcomes: list[str], lines: int) -> None:
+    gc.collect()
     profiler = cProfile.Profile()
     profiler.enable()
     foldsift_once(frame, outcomes)
@@ -288,6 +292,15 @@ def time_robust_full(result) -> float:
 # --------------------------------------------------------------------------- main
 
 
+def machine_line() -> str:
+    """CPUs, polars threads and the load average: timings from a busy machine read high."""
+    try:
+        load = "load average {:.2f} {:.2f} {:.2f}".format(*os.getloadavg())
+    except OSError:
+        load = "load average unknown"
+    return f"{os.cpu_count()} CPUs, polars {pl.thread_pool_size()} threads, {load}"
+
+
 def parse_arguments(argv: list[str] | None) -> argparse.Namespace:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rows", type=int, help=f"rows (default {FULL_SIZE['rows']:,})")
@@ -362,6 +375,7 @@ def main(argv: list[str] | None = None) -> int:
     frame = pl.DataFrame({GROUP: labels, **columns})
     df = pd.DataFrame({GROUP: labels, **columns})
     print(f"  built in {time.perf_counter() - start:.2f} s")
+    print(f"Machine: {machine_line()}")
     print(f"Table shape: {frame.height:,} rows x {frame.width} columns")
     print(f"Comparisons: {pairs_per_outcome} pairs x {outcome_count} outcomes = {comparisons:,}")
 
@@ -425,6 +439,7 @@ def main(argv: list[str] | None = None) -> int:
     met = speedup >= TARGET_SPEEDUP
     print(f"  target >= {TARGET_SPEEDUP:g}x:   {'met' if met else 'NOT met'}")
     print(f"  results agree:    {'yes' if agrees else 'NO'}")
+    print(f"  machine:          {machine_line()}")
 
     if arguments.robust or arguments.robust_full:
         count = min(arguments.robust_comparisons, comparisons)

@@ -485,7 +485,7 @@ async def test_reviews_survive_closing_and_reopening(tmp_path: Path) -> None:
         await until(pilot, lambda: not isinstance(app.screen, NoteScreen), "editor closed")
         await press_and_settle(pilot, "3")
         await pilot.press("ctrl+q")
-    assert app.return_code in (0, None)
+    assert app.return_code == 0
 
     # The review file holds the changes without the app.
     with ReviewStore(tmp_path / "r.sqlite", app.result.table.fingerprint) as store:
@@ -769,6 +769,8 @@ async def test_bad_input_file_shows_the_error(tmp_path: Path, content: str, mess
         assert message in sentence(app)
         assert shown(app).height == 0
         assert app.is_running
+        await pilot.press("ctrl+q")
+    assert app.return_code == 2, "quitting after a data error exits with status 2"
     assert not (tmp_path / "r.sqlite").exists()
 
 

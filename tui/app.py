@@ -75,17 +75,17 @@ class FoldsiftApp(App[int]):
     BINDINGS = [
         Binding("slash", "focus_filter", "Filter", id="app.filter"),
         Binding("s", "next_sort", "Sort", id="app.sort"),
-        Binding("r", "reverse_sort", "Reverse", id="app.reverse"),
+        Binding("r", "reverse_sort", "Reverse", show=False, id="app.reverse"),
         Binding("space", "toggle_flag", "Flag", id="app.flag"),
         Binding("n", "edit_note", "Note", id="app.note"),
-        Binding("1", "decide('keep')", "Keep", id="app.keep"),
-        Binding("2", "decide('doubt')", "Doubt", id="app.doubt"),
-        Binding("3", "decide('drop')", "Drop", id="app.drop"),
+        Binding("1", "decide('keep')", "Keep·2 Doubt·3 Drop", id="app.keep"),
+        Binding("2", "decide('doubt')", "Doubt", show=False, id="app.doubt"),
+        Binding("3", "decide('drop')", "Drop", show=False, id="app.drop"),
         Binding("0", "decide('')", "Undecide", show=False, id="app.undecide"),
         Binding("b", "robust", "Cross-check", id="app.robust"),
         Binding("x", "export", "Export", id="app.export"),
         Binding("question_mark", "help", "Help", id="app.help"),
-        Binding("i", "about", "About", id="app.about"),
+        Binding("i", "about", "About", show=False, id="app.about"),
     ]
 
     def __init__(
@@ -521,7 +521,8 @@ class FoldsiftApp(App[int]):
 
     async def action_quit(self) -> None:
         """Quit; the exit status is 2 when the data could not be opened (as for scan)."""
-        self.exit(2 if self.error_text else 0)
+        code = 2 if self.error_text else 0
+        self.exit(code, return_code=code)  # exit(2) alone sets the result, not the status
 
     def on_unmount(self) -> None:
         if self.store is not None:

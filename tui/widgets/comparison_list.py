@@ -60,25 +60,26 @@ def _decision(row: dict) -> str:
     return row.get("decision") or ""
 
 
+# Most-read columns first, so an 80-column terminal shows the finding without scrolling.
 COLUMNS: tuple[Column, ...] = (
     Column("⚑", 1, "flagged", lambda r: "⚑" if r.get("flagged") else " "),
-    Column("outcome", 22, "outcome", lambda r: readable_outcome(r["outcome"])),
-    Column("grouping", 8, "grouping", lambda r: r["grouping"]),
-    Column("level b ÷ level a", 23, "level_b", lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
-    Column("n b/a", 7, "n_a", lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
+    Column("outcome", 20, "outcome", lambda r: readable_outcome(r["outcome"])),
+    Column("level b ÷ level a", 22, "level_b", lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
     Column("ratio", 6, "ratio", lambda r: _ratio(r["ratio"]), right=True),
     Column("CI", 11, "ci_low", lambda r: f"{_ratio(r['ci_low'])}–{_ratio(r['ci_high'])}"),
-    Column("change", 7, "percent_change", lambda r: _percent(r["percent_change"]), right=True),
-    Column("p", 6, "p_value", lambda r: _p(r["p_value"]), right=True),
     Column("q", 6, "q_bh", lambda r: _p(r["q_bh"]), right=True),
+    Column("p", 6, "p_value", lambda r: _p(r["p_value"]), right=True),
     Column(
         "warn",
-        3,
+        4,
         "warning_count",
         lambda r: f"!{r['warning_count']}" if r.get("warning_count") else "",
         right=True,
     ),
-    Column("decision", 6, "decision", _decision),
+    Column("n b/a", 7, "n_a", lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
+    Column("grouping", 8, "grouping", lambda r: r["grouping"]),
+    Column("change", 7, "percent_change", lambda r: _percent(r["percent_change"]), right=True),
+    Column("decision", 8, "decision", _decision),
     Column("✎", 1, "note", lambda r: "✎" if r.get("note") else " "),
 )
 SEPARATOR = " "

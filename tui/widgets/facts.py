@@ -12,8 +12,8 @@ from foldsift.stats.sentence import finding, number, p_text, ratio_text
 
 from .histograms import STYLE_A, STYLE_B
 
-LABEL_WIDTH = 22
-VALUE_WIDTH = 14
+LABEL_WIDTH = 17
+VALUE_WIDTH = 13
 
 
 def _count(value: int | None) -> str:
@@ -48,7 +48,7 @@ def facts_text(row: dict, band: tuple[float, float], check: RobustCheck | None) 
     pair("log SD", "sd_log")
     pair("skewness (logs)", "skew_log")
     pair("skewness (raw)", "skew_raw")
-    pair("Shapiro-Wilk p (logs)", "shapiro_p", p_text)
+    pair("Shapiro p (logs)", "shapiro_p", p_text)
     text.append("\n")
     level = round(100 * row["confidence"])
     test = "Welch" if row["test"] == "welch" else "pooled"
@@ -74,7 +74,7 @@ def facts_text(row: dict, band: tuple[float, float], check: RobustCheck | None) 
         f"90% CI {ratio_text(row.get('tost_ci_low'))} to {ratio_text(row.get('tost_ci_high'))}",
     )
     line(
-        "CI width (high/low)",
+        "CI high/low",
         number(row.get("ci_fold")),
         f"detectable with 80% power: {ratio_text(row.get('detectable_ratio'))}×",
     )
@@ -82,12 +82,12 @@ def facts_text(row: dict, band: tuple[float, float], check: RobustCheck | None) 
         line("n per group needed", number(row["n_needed"]), "for the target ratio")
     if check is not None:
         line(
-            "bootstrap median ratio",
+            "bootstrap medians",
             f"{ratio_text(check.median_ratio_ci_low)}–{ratio_text(check.median_ratio_ci_high)}",
             f"BCa {level}% CI of {ratio_text(check.median_ratio)}",
         )
         line(
-            "Hodges-Lehmann ratio",
+            "Hodges-Lehmann",
             ratio_text(check.hl_ratio),
             f"CI {ratio_text(check.hl_ci_low)} to {ratio_text(check.hl_ci_high)}, "
             f"Mann-Whitney {p_text(check.mann_whitney_p, 'p')}",
