@@ -191,6 +191,15 @@ def _numeric_share(frame: pl.DataFrame) -> dict[str, float]:
     return shares
 
 
+def _is_numeric_column(frame: pl.DataFrame, name: str) -> bool:
+    dtype = frame.schema[name]
+    if dtype.is_numeric():
+        return True
+    if dtype not in (pl.Utf8, pl.Categorical):
+        return False
+    return _numeric_share(frame.select(name))[name] >= NUMERIC_SHARE
+
+
 def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
     """Guess grouping and outcome columns of a raw frame."""
     groupings: list[str] = []
@@ -267,6 +276,14 @@ def load_table(
         chosen_outcomes = list(outcomes)
     else:
         chosen_outcomes = [name for name in guessed_outcomes if name not in chosen_groups]
+        if groupings:
+            # The user named the groupings: few-level integer columns are measurements too.
+            chosen_outcomes += [
+                name
+                for name in guessed_groups
+                if name not in chosen_groups and _is_numeric_column(raw, name)
+            ]
+            chosen_outcomes.sort(key=raw.columns.index)
     overlap = set(chosen_groups) & set(chosen_outcomes)
     if overlap:
         raise InputError(
@@ -310,6 +327,11 @@ def load_table(
             )
     for name in chosen_groups:
         distinct = typed[name].drop_nulls().n_unique()
+        if distinct >= 2 and distinct == typed[name].drop_nulls().len() and typed.height > 2:
+            raise InputError(
+                f"{label}: grouping column {name!r} has a different value in every row, like an "
+                "identifier; choose a column whose levels repeat"
+            )
         if distinct < 2:
             raise InputError(
                 f"{label}: grouping column {name!r} has a single level; "

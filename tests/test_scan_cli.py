@@ -262,3 +262,32 @@ def test_degenerate_scan_writes_no_warnings_text(tmp_path):
     assert done.stderr.strip()
     assert all(line.startswith("foldsift:") for line in done.stderr.splitlines()), done.stderr
     assert len(pl.read_csv(done.stdout.encode())) == 6
+
+
+def test_identifier_column_is_refused_as_grouping(tmp_path, capsys):
+    """A grouping whose every row is its own level gives one comparison per pair of rows:
+    refuse it with a message naming the column (project contract)."""
+    path = write(tmp_path / "ids.csv", "sample,site,value\ns1,a,1\ns2,a,2\ns3,b,3\ns4,b,5\n")
+    code = main(["scan", str(path), "--group", "sample"])
+    line = assert_one_line_failure(code, capsys.readouterr(), "sample", "identifier")
+    assert "ids.csv" in line
+
+
+def test_few_level_integer_column_is_an_outcome_once_groupings_are_named(tmp_path, capsys):
+    """With --group given, an integer column of counts with few distinct values is measured,
+    not grouped on (project contract: named roles override the guess)."""
+    path = write(tmp_path / "counts.csv", "site,eggs\na,1\na,2\na,3\nb,2\nb,3\nb,3\n")
+    code = main(["scan", str(path), "--group", "site"])
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    frame = pl.read_csv(captured.out.encode())
+    assert frame["outcome"].to_list() == ["eggs"]
+    assert frame["n_a"].to_list() == [3] and frame["n_b"].to_list() == [3]
+
+
+def test_usage_error_is_one_line(capsys):
+    """Usage errors use the same one-line form as every other error, exit status 2."""
+    with pytest.raises(SystemExit) as raised:
+        main(["scan", "x.csv", "--test", "sometimes"])
+    assert raised.value.code == EXIT_BAD_INPUT
+    assert_one_line_failure(EXIT_BAD_INPUT, capsys.readouterr(), "--test", "sometimes")

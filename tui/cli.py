@@ -245,12 +245,21 @@ def command_export(args: argparse.Namespace) -> int:
     return 0
 
 
+class _Parser(argparse.ArgumentParser):
+    """Usage errors as one line, like every other foldsift error (exit status 2)."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.exit(EXIT_BAD_INPUT, f"foldsift: {message} (see '{self.prog} --help')\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="foldsift",
         description="Compare groups on many positive, right-skewed measurements on the log scale.",
     )
-    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    commands = parser.add_subparsers(
+        dest="command", required=True, metavar="COMMAND", parser_class=_Parser
+    )
     scan = commands.add_parser("scan", help="compute every comparison and write CSV")
     add_scan_options(scan)
     scan.add_argument("--out", type=Path, metavar="FILE.csv", help="write here instead of stdout")
