@@ -58,19 +58,49 @@ def back_to_back(
         if values.size:
             plt.vline(float(transform(_geometric_mean(values))), color)
             plt.vline(float(transform(np.median(values))), color + "+")
-    tick_values = np.linspace(low, high, 4)
-    labels = [_tick(math.exp(v) if log_scale else v) for v in tick_values]
-    plt.xticks(list(tick_values), labels)
-    top = max(int(counts_b.max(initial=1)), 1)
-    bottom = max(int(counts_a.max(initial=1)), 1)
-    plt.yticks([-bottom, 0, top], [str(bottom), "0", str(top)])
+    raw_ticks = (
+        _nice_ticks(math.exp(low), math.exp(high), log_scale)
+        if log_scale
+        else _nice_ticks(low, high, False)
+    )
+    positions = [math.log(v) if log_scale else v for v in raw_ticks]
+    plt.xticks(positions, [_tick(v) for v in raw_ticks])
+    # One count scale for both groups, so bar heights compare directly.
+    tallest = max(int(counts_a.max(initial=1)), int(counts_b.max(initial=1)), 1)
+    plt.ylim(-tallest, tallest)
+    plt.yticks([-tallest, 0, tallest], [str(tallest), "0", str(tallest)])
     plt.title(title)
     return Text.from_ansi(plt.build())
+
+
+def _nice_ticks(low: float, high: float, log_scale: bool, most: int = 5) -> list[float]:
+    """Round tick values inside [low, high]: 1-2-5 steps, or 1-2-5 × 10^k on a log scale."""
+    if not (math.isfinite(low) and math.isfinite(high)) or high <= low:
+        return [low]
+    if log_scale and low > 0:
+        ticks = []
+        for exponent in range(math.floor(math.log10(low)), math.ceil(math.log10(high)) + 1):
+            for mantissa in (1, 2, 5):
+                value = mantissa * 10.0**exponent
+                if low <= value <= high:
+                    ticks.append(value)
+        if len(ticks) > most:
+            ticks = [v for v in ticks if math.isclose(math.log10(v) % 1, 0, abs_tol=1e-9)] or ticks
+        if len(ticks) >= 2:
+            return ticks
+    span = high - low
+    step = 10 ** math.floor(math.log10(span / most))
+    for factor in (1, 2, 5, 10):
+        if span / (step * factor) <= most:
+            step *= factor
+            break
+    first = math.ceil(low / step) * step
+    return [first + i * step for i in range(int((high - first) / step + 1e-9) + 1)]
 
 
 def _tick(value: float) -> str:
     if value == 0:
         return "0"
-    if abs(value) >= 1000 or abs(value) < 0.01:
-        return f"{value:.1e}"
-    return f"{value:.3g}"
+    if abs(value) >= 100000 or abs(value) < 0.001:
+        return f"{value:.0e}"
+    return f"{value:g}"
