@@ -18,12 +18,13 @@ from textual.css.query import NoMatches
 from textual.message import Message
 from textual.timer import Timer
 from textual.widgets import Footer, Input, Static
+from textual.worker import get_current_worker
 
 from foldsift.stats.equivalence import BAND_CLASSES
 from foldsift.stats.export import join_reviews, write_export
 from foldsift.stats.load import InputError, load_table
 from foldsift.stats.reviews import ReviewStore, ReviewStoreError, default_review_path
-from foldsift.stats.robust import GroupValues, RobustCheck, robust_check
+from foldsift.stats.robust import DEFAULT_RESAMPLES, GroupValues, RobustCheck, robust_check
 from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
 from foldsift.stats.sentence import finding, readable_outcome
 
@@ -61,6 +62,18 @@ class ScanFinished(Message):
 
 
 @dataclass
+class RobustProgress(Message):
+    """How far the cross-checks worker is; later ones replace earlier ones in the queue."""
+
+    done: int
+    total: int
+    finished: bool = False
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, RobustProgress) and not message.finished
+
+
+@dataclass
 class RobustFinished(Message):
     key: str
     check: RobustCheck | None
@@ -83,7 +96,10 @@ class FoldsiftApp(App[int]):
         Binding("3", "decide('drop')", "Drop", show=False, id="app.drop"),
         Binding("0", "decide('')", "Undecide", show=False, id="app.undecide"),
         Binding("b", "robust", "Cross-check", id="app.robust"),
+        Binding("B", "robust_shown", "Cross-check shown", show=False, id="app.robust_shown"),
+        Binding("escape", "stop_checks", "Stop checks", show=False, id="app.stop_checks"),
         Binding("x", "export", "Export", id="app.export"),
+        Binding("z", "cycle_panes", "Panes", id="app.panes"),
         Binding("question_mark", "help", "Help", id="app.help"),
         Binding("i", "about", "About", show=False, id="app.about"),
     ]
@@ -185,10 +201,12 @@ class FoldsiftApp(App[int]):
     def _with_reviews(self, comparisons: pl.DataFrame) -> pl.DataFrame:
         assert self.store is not None
         joined = join_reviews(comparisons, self.store.frame())
+        labels = {name: readable_outcome(name) for name in self.result.table.outcomes}
         return joined.with_columns(
+            outcome_label=pl.col("outcome").replace_strict(labels, return_dtype=pl.Utf8),
             warning_count=pl.when(pl.col("warnings") == "")
             .then(0)
-            .otherwise(pl.col("warnings").str.count_matches(";") + 1)
+            .otherwise(pl.col("warnings").str.count_matches(";") + 1),
         )
 
     # -- view: sort and filter --------------------------------------------------------------
@@ -197,7 +215,7 @@ class FoldsiftApp(App[int]):
         listing = self.query_one(ComparisonList)
         frame = self.base
         try:
-            expression = parse_filter(self.filter_text)
+            expression = parse_filter(self.filter_text, self.base.columns)
         except FilterError as error:
             self._message = f"filter not applied: {error}"
             expression = None
@@ -278,6 +296,7 @@ class FoldsiftApp(App[int]):
             "edit_note",
             "decide",
             "robust",
+            "robust_shown",
             "export",
             "next_sort",
             "reverse_sort",
@@ -285,6 +304,23 @@ class FoldsiftApp(App[int]):
         if action in needs_row and (self.result is None or self.store is None):
             return None
         return not (isinstance(self.focused, Input) and action in needs_row | {"focus_filter"})
+
+    PANE_LAYOUTS = ("", "detail-large", "list-large")
+
+    def action_cycle_panes(self) -> None:
+        """Balanced, a large detail, or a large list (for small terminals)."""
+        current = next(
+            (name for name in self.PANE_LAYOUTS if name and self.screen.has_class(name)), ""
+        )
+        following = self.PANE_LAYOUTS[
+            (self.PANE_LAYOUTS.index(current) + 1) % len(self.PANE_LAYOUTS)
+        ]
+        self.screen.remove_class(*[name for name in self.PANE_LAYOUTS if name])
+        if following:
+            self.screen.add_class(following)
+        self._facts_lines = -1
+        self.call_after_refresh(self._show_plots)
+        self.call_after_refresh(self._show_facts)
 
     # -- detail -----------------------------------------------------------------------------
     def _current(self) -> dict | None:
@@ -428,37 +464,105 @@ class FoldsiftApp(App[int]):
 
     # -- robust cross-checks ----------------------------------------------------------------
     def action_robust(self) -> None:
+        """Cross-checks for the highlighted comparison."""
         row = self._current()
-        if row is None or self._values is None:
+        if row is not None:
+            self._start_checks([row])
+
+    def action_robust_shown(self) -> None:
+        """Cross-checks for every comparison the filter shows that has none yet."""
+        frame = self.query_one(ComparisonList).frame
+        rows = [row for row in frame.iter_rows(named=True) if row["key"] not in self.robust]
+        if not rows:
+            self._message = "every shown comparison already has its cross-checks"
+            self._set_status()
             return
-        self._message = "cross-checks running (bootstrap 2,000 resamples) …"
+        self._start_checks(rows)
+
+    def action_stop_checks(self) -> None:
+        self.workers.cancel_group(self, "robust")
+
+    def _start_checks(self, rows: list[dict]) -> None:
+        if self._values is None:
+            return
+        jobs = [
+            (row["key"], row["grouping"], row["level_a"], row["level_b"], row["outcome"])
+            for row in rows
+        ]
+        self._message = f"cross-checks: 0/{len(jobs)} (bootstrap {DEFAULT_RESAMPLES:,} resamples)"
         self._set_status()
-        a = self._values.values(row["grouping"], row["level_a"], row["outcome"])
-        b = self._values.values(row["grouping"], row["level_b"], row["outcome"])
-        self._robust_worker(row["key"], a, b, row["confidence"])
+        self._robust_worker(jobs, rows[0]["confidence"])
 
     @work(thread=True, exclusive=True, group="robust")
-    def _robust_worker(self, key: str, a, b, confidence: float) -> None:
-        try:
-            check = robust_check(a, b, confidence=confidence)
-        except Exception as error:  # a numerical failure must not end the session
-            self.post_message(RobustFinished(key, None, str(error)))
-            return
-        self.post_message(RobustFinished(key, check))
+    def _robust_worker(self, jobs: list[tuple[str, str, str, str, str]], confidence: float) -> None:
+        worker = get_current_worker()
+        assert self._values is not None
+        done = 0
+        for key, grouping, level_a, level_b, outcome in jobs:
+            if worker.is_cancelled:
+                break
+            a = self._values.values(grouping, level_a, outcome)
+            b = self._values.values(grouping, level_b, outcome)
+            try:
+                check = robust_check(a, b, confidence=confidence)
+            except Exception as error:  # a numerical failure must not end the session
+                self.post_message(RobustFinished(key, None, str(error)))
+                continue
+            done += 1
+            self.post_message(RobustFinished(key, check))
+            self.post_message(RobustProgress(done, len(jobs)))
+        self.post_message(RobustProgress(done, len(jobs), finished=True))
 
     @on(RobustFinished)
     def robust_finished(self, message: RobustFinished) -> None:
         if message.check is None:
-            self._message = f"cross-checks failed: {message.error}"
-        else:
-            self.robust[message.key] = message.check
+            self._message = f"cross-checks failed for one comparison: {message.error}"
+            self._set_status()
+            return
+        self.robust[message.key] = message.check
+        if message.key == self.query_one(ComparisonList).current_key:
+            self._show_facts()
+
+    @on(RobustProgress)
+    def robust_progress(self, message: RobustProgress) -> None:
+        if message.finished:
+            stopped = message.done < message.total
             self._message = (
-                "cross-checks done"
-                if not message.check.reason
-                else f"cross-checks: {message.check.reason}"
+                f"cross-checks stopped after {message.done}/{message.total}"
+                if stopped
+                else f"cross-checks done for {message.done} comparison(s)"
             )
+        else:
+            share = message.done / max(message.total, 1)
+            bar = "#" * round(20 * share) + "." * (20 - round(20 * share))
+            self._message = f"cross-checks [{bar}] {message.done}/{message.total} · escape stops"
         self._set_status()
-        self._show_facts()
+
+    def robust_frame(self) -> pl.DataFrame:
+        """Cross-check results so far, one row per key (empty frame with the columns if none)."""
+        columns = {
+            "key": pl.Utf8,
+            "boot_median_ratio_low": pl.Float64,
+            "boot_median_ratio_high": pl.Float64,
+            "hl_ratio": pl.Float64,
+            "hl_ci_low": pl.Float64,
+            "hl_ci_high": pl.Float64,
+            "mann_whitney_p": pl.Float64,
+        }
+        rows = [
+            (
+                key,
+                c.median_ratio_ci_low,
+                c.median_ratio_ci_high,
+                c.hl_ratio,
+                c.hl_ci_low,
+                c.hl_ci_high,
+                c.mann_whitney_p,
+            )
+            for key, c in self.robust.items()
+        ]
+        frame = pl.DataFrame(rows, schema=columns, orient="row")
+        return frame.with_columns(pl.col(pl.Float64).fill_nan(None))
 
     # -- export -----------------------------------------------------------------------------
     def action_export(self) -> None:
@@ -492,7 +596,9 @@ class FoldsiftApp(App[int]):
             frame = self.base
         else:
             frame = self.base.filter(pl.col("flagged"))
-        frame = frame.drop("warning_count")
+        frame = frame.drop("warning_count", "outcome_label").join(
+            self.robust_frame(), on="key", how="left"
+        )
         sentences = [finding(row) for row in frame.iter_rows(named=True)]
         return frame.with_columns(pl.Series("sentence", sentences, dtype=pl.Utf8))
 
@@ -541,7 +647,9 @@ def help_text() -> str:
         ("1 / 2 / 3 / 0", "decision: keep / doubt / drop / none"),
         ("n", "write a note (ctrl+s saves, escape cancels)"),
         ("b", "cross-checks: bootstrap CI of the median ratio, Hodges-Lehmann"),
+        ("B / escape", "cross-check every shown comparison (progress in the status) / stop"),
         ("x", "export flagged, filtered or all rows to CSV"),
+        ("z", "pane sizes: balanced, large detail, large list"),
         ("tab", "move between the list, the filter and the detail"),
         ("?  /  i", "this help / about and cautions"),
         ("ctrl+q", "quit (every change is already saved)"),

@@ -18,6 +18,7 @@ Words, separated by spaces; a row is shown when all of them hold:
 from __future__ import annotations
 
 import re
+from collections.abc import Collection
 
 import polars as pl
 
@@ -58,7 +59,7 @@ def _band(text: str, word: str) -> tuple[float, float]:
     return low, high
 
 
-def _word(word: str) -> pl.Expr:
+def _word(word: str, columns: Collection[str] = ()) -> pl.Expr:
     lowered = word.lower()
     match = _CONDITION.match(lowered)
     if match:
@@ -106,20 +107,25 @@ def _word(word: str) -> pl.Expr:
         return (pl.col("decision") == lowered).fill_null(False)
     if any(symbol in lowered for symbol in "<>="):
         raise FilterError(f"{word!r}: write conditions like q<0.05 or ratio>2")
+    label = pl.col("outcome_label") if "outcome_label" in columns else pl.col("outcome")
     return (
-        pl.col("outcome").str.to_lowercase().str.contains(lowered, literal=True)
+        label.str.to_lowercase().str.contains(lowered, literal=True)
+        | pl.col("outcome").str.to_lowercase().str.contains(lowered, literal=True)
         | pl.col("grouping").str.to_lowercase().str.contains(lowered, literal=True)
         | pl.col("level_a").str.to_lowercase().str.contains(lowered, literal=True)
         | pl.col("level_b").str.to_lowercase().str.contains(lowered, literal=True)
     )
 
 
-def parse_filter(text: str) -> pl.Expr | None:
-    """One expression for the whole line (None when the line is empty)."""
+def parse_filter(text: str, columns: Collection[str] = ()) -> pl.Expr | None:
+    """One expression for the whole line (None when the line is empty).
+
+    ``columns`` are the frame's columns: with ``outcome_label`` there, text also matches the
+    readable outcome names (``mg/kg``, ``µg``)."""
     expression: pl.Expr | None = None
     for word in text.split():
         negate = word.startswith("-") and len(word) > 1 and not word[1].isdigit()
-        part = _word(word[1:] if negate else word)
+        part = _word(word[1:] if negate else word, columns)
         if negate:
             part = ~part
         expression = part if expression is None else expression & part

@@ -12,7 +12,7 @@ from foldsift.stats.sentence import finding, number, p_text, ratio_text
 
 from .histograms import STYLE_A, STYLE_B
 
-LABEL_WIDTH = 17
+LABEL_WIDTH = 18
 VALUE_WIDTH = 13
 
 
@@ -76,7 +76,7 @@ def facts_text(row: dict, band: tuple[float, float], check: RobustCheck | None) 
     line(
         "CI high/low",
         number(row.get("ci_fold")),
-        f"detectable with 80% power: {ratio_text(row.get('detectable_ratio'))}×",
+        f"80%-power detectable {ratio_text(row.get('detectable_ratio'))}×",
     )
     if row.get("n_needed") is not None:
         line("n per group needed", number(row["n_needed"]), "for the target ratio")
