@@ -151,7 +151,9 @@ class FoldsiftApp(App[int]):
     def on_mount(self) -> None:
         self.sub_title = self.data_path.name
         self._set_status(f"scanning {self.data_path.name} …")
-        self.query_one(ComparisonList).focus()
+        listing = self.query_one(ComparisonList)
+        listing.loading = True  # a busy indicator over the list until the scan is back
+        listing.focus()
         self.run_scan()
 
     # -- scan -------------------------------------------------------------------------------
@@ -167,6 +169,7 @@ class FoldsiftApp(App[int]):
 
     @on(ScanFinished)
     def scan_finished(self, message: ScanFinished) -> None:
+        self.query_one(ComparisonList).loading = False
         if message.result is None:
             self._show_error(f"Cannot open the data: {message.error}")
             return
