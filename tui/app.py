@@ -169,7 +169,9 @@ class FoldsiftApp(App[int]):
 
     @on(ScanFinished)
     def scan_finished(self, message: ScanFinished) -> None:
-        self.query_one(ComparisonList).loading = False
+        listing = self.query_one(ComparisonList)
+        listing.loading = False
+        listing.focus()  # the busy indicator took focus away from the list
         if message.result is None:
             self._show_error(f"Cannot open the data: {message.error}")
             return
