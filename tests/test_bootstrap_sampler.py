@@ -1,0 +1,60 @@
+"""The bootstrap-median sampler against the definition of the bootstrap.
+
+Definition (Efron & Tibshirani, An Introduction to the Bootstrap, 1993, ch. 6): a bootstrap
+replicate is the statistic of n draws with replacement from the sample. The sampler in
+stats/robust.py draws the median of such a resample from its exact distribution instead of
+building the resample; these checks compare it with full enumeration of every resample
+(small n) and with brute-force resampling (scipy's two-sample Kolmogorov-Smirnov test as
+the independent judge).
+"""
+
+from __future__ import annotations
+
+import itertools
+from collections import Counter
+
+import numpy as np
+import pytest
+from scipy import stats as sps
+
+from foldsift.stats.robust import bootstrap_medians
+
+
+@pytest.mark.parametrize("values", [[1.0, 3.0], [1.0, 2.0, 7.0], [1.0, 2.0, 2.0, 9.0]])
+def test_matches_enumeration_of_every_resample(values):
+    """All n^n resamples are equally likely: the exact law of the bootstrap median."""
+    x = np.array(values)
+    n = x.size
+    law = Counter(
+        float(np.median(x[list(picks)])) for picks in itertools.product(range(n), repeat=n)
+    )
+    draws = 200_000
+    sampled = Counter(bootstrap_medians(x, draws, np.random.default_rng(3)).tolist())
+    assert set(sampled) <= set(law)
+    for value, count in law.items():
+        expected = count / n**n
+        # 5 binomial standard errors of a frequency from 200,000 draws
+        tolerance = 5 * np.sqrt(expected * (1 - expected) / draws)
+        assert abs(sampled[value] / draws - expected) <= tolerance, (value, expected)
+
+
+@pytest.mark.parametrize("n", [5, 6, 40, 41, 300, 301])
+def test_matches_brute_force_resampling(n):
+    """Same distribution as np.median of resamples built with rng.integers (with ties)."""
+    x = np.random.default_rng(n).lognormal(size=n)
+    x[: n // 5] = x[0]
+    brute = np.median(x[np.random.default_rng(1).integers(0, n, (20_000, n))], axis=1)
+    exact = bootstrap_medians(x, 20_000, np.random.default_rng(2))
+    assert sps.ks_2samp(brute, exact).pvalue > 1e-3
+    np.testing.assert_allclose(
+        np.quantile(exact, [0.025, 0.5, 0.975]),
+        np.quantile(brute, [0.025, 0.5, 0.975]),
+        rtol=0.05,
+    )
+
+
+def test_seeded_and_empty():
+    x = np.random.default_rng(0).lognormal(size=25)
+    first = bootstrap_medians(x, 500, np.random.default_rng(9))
+    np.testing.assert_array_equal(first, bootstrap_medians(x, 500, np.random.default_rng(9)))
+    assert np.isnan(bootstrap_medians(np.array([]), 3, np.random.default_rng(0))).all()
