@@ -132,21 +132,55 @@ def bca_interval(
     return bounds[0], bounds[1]
 
 
-def _kth_difference(x: np.ndarray, y: np.ndarray, rank: int) -> float:
-    """The rank-th smallest (1-based) of all y_j - x_i, for sorted x and y, by bisection on
-    the value with an O((n+m) log n) count per step."""
-    low = y[0] - x[-1]
-    high = y[-1] - x[0]
-    for _ in range(200):
+def _count_at_most(x: np.ndarray, y: np.ndarray, value: float) -> int:
+    """How many y_j - x_i are <= value (x and y sorted): x_i >= y_j - value."""
+    return int(x.size * y.size - np.searchsorted(x, y - value, side="left").sum())
+
+
+def _kth_difference(x: np.ndarray, y: np.ndarray, rank: int, enumerate_at: int = 250_000) -> float:
+    """The rank-th smallest (1-based) of all y_j - x_i, for sorted x and y, exactly.
+
+    Bisect on the value, keeping count(low) < rank <= count(high), until at most
+    ``enumerate_at`` differences lie in (low, high]; then list those (each row j contributes
+    a contiguous run of x) and pick the answer. A random sample of differences gives the
+    starting bracket, so only a few O((n + m) log n) counting passes are needed."""
+    total = x.size * y.size
+    # Padded by 1 so that rounding in the counts cannot put a difference outside.
+    low, high = float(y[0] - x[-1]) - 1.0, float(y[-1] - x[0]) + 1.0
+    count_low, count_high = 0, total
+    rng = np.random.default_rng(rank)
+    sample = y[rng.integers(0, y.size, 20_000)] - x[rng.integers(0, x.size, 20_000)]
+    share = rank / total
+    spread = 6 * math.sqrt(share * (1 - share) / sample.size) + 1 / sample.size
+    for guess, is_low in (
+        (np.quantile(sample, max(share - spread, 0.0)), True),
+        (np.quantile(sample, min(share + spread, 1.0)), False),
+    ):
+        count = _count_at_most(x, y, float(guess))
+        if is_low and count < rank and guess > low:
+            low, count_low = float(guess), count
+        elif not is_low and count >= rank and guess < high:
+            high, count_high = float(guess), count
+    while count_high - count_low > enumerate_at:
         middle = (low + high) / 2
         if middle in (low, high):
-            break
-        count = int(np.sum(x.size - np.searchsorted(x, y - middle, side="left")))
+            # Many tied differences at one value: the answer is the largest one <= high.
+            index = np.searchsorted(x, y - high, side="left")
+            valid = index < x.size
+            return float(np.max(y[valid] - x[index[valid]]))
+        count = _count_at_most(x, y, middle)
         if count >= rank:
-            high = middle
+            high, count_high = middle, count
         else:
-            low = middle
-    return float(high)
+            low, count_low = middle, count
+    # Differences in (low, high]: for row j, x_i in [y_j - high, y_j - low).
+    starts = np.searchsorted(x, y - high, side="left")
+    stops = np.searchsorted(x, y - low, side="left")
+    lengths = stops - starts
+    rows = np.repeat(np.arange(y.size), lengths)
+    offsets = np.arange(lengths.sum()) - np.repeat(np.cumsum(lengths) - lengths, lengths)
+    inside = np.sort(y[rows] - x[starts[rows] + offsets])
+    return float(inside[rank - count_low - 1])
 
 
 def hodges_lehmann(

@@ -58,3 +58,23 @@ def test_seeded_and_empty():
     first = bootstrap_medians(x, 500, np.random.default_rng(9))
     np.testing.assert_array_equal(first, bootstrap_medians(x, 500, np.random.default_rng(9)))
     assert np.isnan(bootstrap_medians(np.array([]), 3, np.random.default_rng(0))).all()
+
+
+@pytest.mark.parametrize(("n", "m"), [(1, 9), (2, 2), (7, 9), (50, 61), (300, 250)])
+@pytest.mark.parametrize("decimals", [1, 3, None])
+@pytest.mark.parametrize("enumerate_at", [0, 10, 250_000])
+def test_kth_pairwise_difference_matches_full_sort(n, m, decimals, enumerate_at):
+    """The selection used by the large-sample Hodges-Lehmann path equals the k-th value of
+    the fully sorted pairwise differences (the definition, Hollander, Wolfe & Chicken 2014,
+    sec. 4.3), with heavy ties (rounded data) and every switch between counting and listing."""
+    from foldsift.stats.robust import _kth_difference
+
+    rng = np.random.default_rng(n * m)
+    x, y = rng.normal(size=n), rng.normal(0.3, 1.2, size=m)
+    if decimals is not None:
+        x, y = np.round(x, decimals), np.round(y, decimals)
+    x, y = np.sort(x), np.sort(y)
+    every = np.sort(np.subtract.outer(y, x).ravel())
+    for rank in sorted({1, 2, every.size // 2, every.size // 2 + 1, every.size}):
+        got = _kth_difference(x, y, rank, enumerate_at=enumerate_at)
+        assert got == pytest.approx(every[rank - 1], abs=1e-12)
