@@ -338,7 +338,10 @@ class FoldsiftApp(App[int]):
     def highlighted(self, message: ComparisonList.Highlighted) -> None:
         if self.store is None:  # still scanning, or opening failed: keep the message shown
             return
-        self._show_facts()
+        try:
+            self._show_facts()
+        except NoMatches:  # a late message while the app is closing
+            return
         if self._plot_timer is not None:
             self._plot_timer.stop()
         self._plot_timer = self.set_timer(0.06, self._show_plots)
