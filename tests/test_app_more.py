@@ -374,3 +374,18 @@ async def test_status_bar_names_the_review_file(tmp_path: Path) -> None:
         widget = app.query_one("#status", Static)
         painted = [widget.render_line(y).text for y in range(widget.region.height)]
         assert any(reviews.name in line for line in painted), painted
+
+
+def test_help_lists_every_key_of_the_app():
+    """The help page names every key the app binds (issue: a help screen listing every key)."""
+    import re
+
+    from foldsift.tui.app import FoldsiftApp, help_text
+
+    # Only the key column counts: the bold part of each "- **keys** — what" line.
+    keys = " ".join(re.findall(r"^- \*\*(.+?)\*\*", help_text(), flags=re.MULTILINE))
+    shown = {"slash": "/", "question_mark": "?"}
+    for binding in FoldsiftApp.BINDINGS:
+        for key in binding.key.split(","):
+            name = shown.get(key, key)
+            assert re.search(rf"(?<![\w]){re.escape(name)}(?![\w])", keys), (key, keys)

@@ -85,6 +85,7 @@ class FoldsiftApp(App[int]):
 
     CSS_PATH = "app.tcss"
     TITLE = "foldsift"
+    ENABLE_COMMAND_PALETTE = False  # every action has its key; the footer needs the room
     BINDINGS = [
         Binding("slash", "focus_filter", "Filter", id="app.filter"),
         Binding("s", "next_sort", "Sort", id="app.sort"),
@@ -662,8 +663,8 @@ def help_text() -> str:
         ("?  /  i", "this help / about and cautions"),
         ("ctrl+q", "quit (every change is already saved)"),
     ]
-    lines = ["# foldsift keys", "", "| key | does |", "|---|---|"]
-    lines += [f"| {key} | {does} |" for key, does in keys]
+    lines = ["# foldsift keys", ""]
+    lines += [f"- **{key}** — {does}" for key, does in keys]
     lines += ["", "# Filter line", "", (filter_doc or "").split("\n\n", 1)[1]]
     lines += ["", "# Equivalence classes", ""]
     lines += [f"- **{name}**: {text}" for name, text in BAND_CLASSES.items()]
