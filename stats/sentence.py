@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 import re
 
+import polars as pl
+
 from .diagnostics import SYMMETRY_WARNINGS
 
 _UNIT = re.compile(r"_(mg|ug|ng|g|mmol|umol|nmol|us|ms|s|iu|u)_per_([a-z0-9]+)$")
@@ -88,3 +90,10 @@ def finding(row: dict) -> str:
             + ")."
         )
     return text
+
+
+def sentence_column(frame: pl.DataFrame) -> pl.Series:
+    """The ``sentence`` column for every row of a comparisons frame."""
+    return pl.Series(
+        "sentence", [finding(row) for row in frame.iter_rows(named=True)], dtype=pl.Utf8
+    )

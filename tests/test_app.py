@@ -11,92 +11,38 @@ import hashlib
 import json
 import math
 import shutil
-import time
-from collections.abc import AsyncIterator, Callable
-from contextlib import asynccontextmanager
+from collections.abc import Callable
 from pathlib import Path
 
 import polars as pl
 import pytest
 from textual.pilot import Pilot
-from textual.widgets import Button, Input, Markdown, Static, TextArea
+from textual.widgets import Button, Input, Markdown, TextArea
 
 from foldsift.demo.generate import demo_path
 from foldsift.stats.export import settings_path
-from foldsift.stats.load import load_table
 from foldsift.stats.reviews import ReviewStore
-from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
+from foldsift.stats.scan import ScanResult, ScanSettings
 from foldsift.stats.sentence import finding, readable_outcome
-from foldsift.tui.app import SORT_NAMES, FoldsiftApp, make_app
+from foldsift.tui.app import SORT_NAMES, FoldsiftApp
 from foldsift.tui.cli import main as cli_main
 from foldsift.tui.screens.dialogs import ConfirmScreen, ExportScreen, NoteScreen, TextScreen
 from foldsift.tui.widgets.comparison_list import COLUMNS, SEPARATOR, ComparisonList
 
-SIZE = (120, 36)
+from app_support import (
+    current,
+    listing,
+    running,
+    sentence,
+    shown,
+    status,
+    until,
+)
+
+# Every test gets its own review file, cwd and XDG_DATA_HOME (tests/conftest.py).
+pytestmark = pytest.mark.usefixtures("sandbox")
+
 NUMBERS = ("ratio", "ci_low", "ci_high", "p_value", "q_bh", "n_a", "n_b")
-
-
-@pytest.fixture(autouse=True)
-def sandbox(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
-    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "xdg-data"))
-    monkeypatch.chdir(tmp_path)
-    return tmp_path
-
-
-@pytest.fixture(scope="module")
-def demo_scan() -> ScanResult:
-    return run_scan(load_table(demo_path()), ScanSettings())
-
-
-# -- helpers --------------------------------------------------------------------------------
-
-
-async def until(pilot: Pilot, condition: Callable[[], bool], what: str, timeout=10.0) -> None:
-    """Let the app run until condition() holds; fail with `what` if it never does."""
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for: {what}")
-        await pilot.pause(0.02)
-
-
-@asynccontextmanager
-async def running(
-    tmp_path: Path, data: Path | None = None, size: tuple[int, int] = SIZE
-) -> AsyncIterator[tuple[FoldsiftApp, Pilot]]:
-    """The app on `data` (default: the demo) with the scan finished and the list shown."""
-    app = make_app(data or demo_path(), reviews=tmp_path / "r.sqlite", export_dir=tmp_path)
-    async with app.run_test(size=size) as pilot:
-        await app.workers.wait_for_complete()
-        await pilot.pause()
-        if app.result is not None:
-            await until(pilot, lambda: finding(current(app)) in sentence(app), "first sentence")
-        yield app, pilot
-
-
-def listing(app: FoldsiftApp) -> ComparisonList:
-    return app.query_one(ComparisonList)
-
-
-def shown(app: FoldsiftApp) -> pl.DataFrame:
-    return listing(app).frame
-
-
-def current(app: FoldsiftApp) -> dict:
-    lst = listing(app)
-    return lst.frame.row(lst.cursor_row, named=True)
-
-
-def static_text(app: FoldsiftApp, selector: str) -> str:
-    return str(app.query_one(selector, Static).render())
-
-
-def status(app: FoldsiftApp) -> str:
-    return static_text(app, "#status")
-
-
-def sentence(app: FoldsiftApp) -> str:
-    return static_text(app, "#sentence")
 
 
 def facts(app: FoldsiftApp) -> str:

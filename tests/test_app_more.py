@@ -17,8 +17,6 @@ import sys
 import textwrap
 import threading
 import time
-from collections.abc import AsyncIterator, Callable
-from contextlib import asynccontextmanager
 from pathlib import Path
 
 import numpy as np
@@ -29,79 +27,28 @@ from textual.pilot import Pilot
 from textual.widgets import Input, Static
 
 from foldsift.demo.generate import demo_path
-from foldsift.stats.load import file_fingerprint, load_table
+from foldsift.stats.load import file_fingerprint
 from foldsift.stats.policy import USED
 from foldsift.stats.reviews import ReviewStore
-from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
+from foldsift.stats.scan import ScanResult
 from foldsift.stats.sentence import finding, ratio_text
-from foldsift.tui.app import FoldsiftApp, make_app
-from foldsift.tui.widgets.comparison_list import ComparisonList
+from foldsift.tui.app import FoldsiftApp
+
+from app_support import (
+    current,
+    listing,
+    running,
+    sentence,
+    shown,
+    status,
+    until,
+)
+
+# Every test gets its own review file, cwd and XDG_DATA_HOME (tests/conftest.py).
+pytestmark = pytest.mark.usefixtures("sandbox")
 
 SIZE = (120, 36)
 CHILD_TIMEOUT = 60.0
-
-
-@pytest.fixture(autouse=True)
-def sandbox(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
-    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "xdg-data"))
-    monkeypatch.chdir(tmp_path)
-    return tmp_path
-
-
-@pytest.fixture(scope="module")
-def demo_scan() -> ScanResult:
-    return run_scan(load_table(demo_path()), ScanSettings())
-
-
-# -- helpers (same style as test_app.py) ----------------------------------------------------
-
-
-async def until(pilot: Pilot, condition: Callable[[], bool], what: str, timeout=10.0) -> None:
-    """Let the app run until condition() holds; fail with `what` if it never does."""
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for: {what}")
-        await pilot.pause(0.02)
-
-
-@asynccontextmanager
-async def running(
-    tmp_path: Path, data: Path | None = None, size: tuple[int, int] = SIZE
-) -> AsyncIterator[tuple[FoldsiftApp, Pilot]]:
-    """The app on `data` (default: the demo) with the scan finished and the list shown."""
-    app = make_app(data or demo_path(), reviews=tmp_path / "r.sqlite", export_dir=tmp_path)
-    async with app.run_test(size=size) as pilot:
-        await app.workers.wait_for_complete()
-        await pilot.pause()
-        if app.result is not None:
-            await until(pilot, lambda: finding(current(app)) in sentence(app), "first sentence")
-        yield app, pilot
-
-
-def listing(app: FoldsiftApp) -> ComparisonList:
-    return app.query_one(ComparisonList)
-
-
-def shown(app: FoldsiftApp) -> pl.DataFrame:
-    return listing(app).frame
-
-
-def current(app: FoldsiftApp) -> dict:
-    lst = listing(app)
-    return lst.frame.row(lst.cursor_row, named=True)
-
-
-def static_text(app: FoldsiftApp, selector: str) -> str:
-    return str(app.query_one(selector, Static).render())
-
-
-def status(app: FoldsiftApp) -> str:
-    return static_text(app, "#status")
-
-
-def sentence(app: FoldsiftApp) -> str:
-    return static_text(app, "#sentence")
 
 
 async def filter_by_typing(app: FoldsiftApp, pilot: Pilot, text: str) -> None:

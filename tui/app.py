@@ -4,7 +4,6 @@ reviewer's flags, decisions and notes, saved at once."""
 from __future__ import annotations
 
 import argparse
-import math
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -26,7 +25,7 @@ from foldsift.stats.load import InputError, load_table
 from foldsift.stats.reviews import ReviewStore, ReviewStoreError, default_review_path
 from foldsift.stats.robust import DEFAULT_RESAMPLES, GroupValues, RobustCheck, robust_check
 from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
-from foldsift.stats.sentence import finding, readable_outcome
+from foldsift.stats.sentence import readable_outcome, sentence_column
 
 from .filtering import FilterError, parse_filter
 from .screens.dialogs import (
@@ -608,8 +607,7 @@ class FoldsiftApp(App[int]):
         frame = frame.drop("warning_count", "outcome_label").join(
             self.robust_frame(), on="key", how="left"
         )
-        sentences = [finding(row) for row in frame.iter_rows(named=True)]
-        return frame.with_columns(pl.Series("sentence", sentences, dtype=pl.Utf8))
+        return frame.with_columns(sentence_column(frame))
 
     def _export(self, choice: ExportChoice, *, overwrite: bool) -> None:
         assert self.result is not None
@@ -705,7 +703,3 @@ def make_app(
         reviews=reviews,
         export_dir=export_dir,
     )
-
-
-def _finite(value: float | None) -> bool:
-    return value is not None and math.isfinite(value)

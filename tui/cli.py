@@ -152,7 +152,7 @@ def _check_out(path: Path | None) -> None:
 
 def command_scan(args: argparse.Namespace) -> int:
     from foldsift.stats.robust import robust_all
-    from foldsift.stats.sentence import finding
+    from foldsift.stats.sentence import sentence_column
 
     _check_out(args.out)
     result = load_and_scan(args)
@@ -172,23 +172,13 @@ def command_scan(args: argparse.Namespace) -> int:
     if args.robust:
         comparisons = robust_all(result, resamples=args.resamples, progress=_progress_bar)
         print(file=sys.stderr)
-    comparisons = comparisons.with_columns(
-        sentence=pl_sentences(comparisons, finding),
-    )
+    comparisons = comparisons.with_columns(sentence_column(comparisons))
     if args.out is None:
         sys.stdout.write(comparisons.write_csv())
     else:
         comparisons.write_csv(args.out)
         print(f"foldsift: wrote {comparisons.height} rows to {args.out}", file=sys.stderr)
     return 0
-
-
-def pl_sentences(frame, finding):
-    import polars as pl
-
-    return pl.Series(
-        "sentence", [finding(row) for row in frame.iter_rows(named=True)], dtype=pl.Utf8
-    )
 
 
 def _progress_bar(done: int, total: int) -> None:
@@ -219,7 +209,7 @@ def command_review(args: argparse.Namespace) -> int:
 def command_export(args: argparse.Namespace) -> int:
     from foldsift.stats.export import join_reviews, select_rows, write_export
     from foldsift.stats.reviews import ReviewStore, default_review_path
-    from foldsift.stats.sentence import finding
+    from foldsift.stats.sentence import sentence_column
 
     _check_out(args.out)
     result = load_and_scan(args)
@@ -229,7 +219,7 @@ def command_export(args: argparse.Namespace) -> int:
     with ReviewStore(path, result.table.fingerprint) as store:
         joined = join_reviews(result.comparisons, store.frame())
     rows = select_rows(joined, "all" if args.all else "flagged")
-    rows = rows.with_columns(sentence=pl_sentences(rows, finding))
+    rows = rows.with_columns(sentence_column(rows))
     settings = result.metadata() | {
         "rows_chosen": "all" if args.all else "flagged",
         "reviews": str(path),
