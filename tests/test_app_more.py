@@ -338,3 +338,42 @@ def test_help_lists_every_key_of_the_app():
         for key in binding.key.split(","):
             name = shown.get(key, key)
             assert re.search(rf"(?<![\w]){re.escape(name)}(?![\w])", keys), (key, keys)
+
+
+async def test_review_robust_option_cross_checks_everything_on_open(tmp_path: Path) -> None:
+    """`foldsift review --robust` starts the cross-checks for every comparison once open."""
+    from foldsift.tui.app import make_app
+    from foldsift.tui.cli import build_parser
+
+    args = build_parser().parse_args(["review", str(demo_path()), "--robust"])
+    app = make_app(demo_path(), args, reviews=tmp_path / "r.sqlite", export_dir=tmp_path)
+    async with app.run_test(size=SIZE) as pilot:
+        await until(pilot, lambda: app.result is not None, "scan", timeout=30)
+        await until(pilot, lambda: len(app.robust) == app.base.height, "cross-checks", 60)
+        await pilot.pause()
+        assert set(app.robust) == set(app.base["key"])
+        assert "cross-checks done" in status(app)
+
+
+async def test_change_column_sorts_on_the_size_of_the_change(tmp_path: Path) -> None:
+    """Sorting on "change" ranks a 0.25× ratio beside a 4× one: |log2 ratio| descending."""
+    async with running(tmp_path) as (app, pilot):
+        await pilot.click("#list", offset=(_column_x("change"), 0))  # sort on it
+        await pilot.pause()
+        await pilot.click("#list", offset=(_column_x("change"), 0))  # again: descending
+        await pilot.pause()
+        sizes = [abs(v) for v in shown(app)["log2_ratio"].drop_nulls().to_list()]
+        assert sizes == sorted(sizes, reverse=True)
+        top = shown(app)["ratio"].head(10).to_list()
+        assert min(top) < 1 < max(top), "decreases and increases rank together"
+
+
+def _column_x(title: str) -> int:
+    from foldsift.tui.widgets.comparison_list import COLUMNS, SEPARATOR
+
+    x = 0
+    for column in COLUMNS:
+        if column.title == title:
+            return x + 1
+        x += column.width + len(SEPARATOR)
+    raise AssertionError(title)

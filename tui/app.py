@@ -48,6 +48,7 @@ SORT_NAMES = {column.sort_on: column.title for column in COLUMNS} | {
     "level_b": "levels",
     "n_a": "n",
     "ci_low": "CI",
+    "change_size": "size of change",
 }
 DECISION_KEYS = {"1": "keep", "2": "doubt", "3": "drop"}
 
@@ -113,8 +114,10 @@ class FoldsiftApp(App[int]):
         outcomes: list[str] | None = None,
         reviews: Path | None = None,
         export_dir: Path | None = None,
+        robust_on_open: bool = False,
     ) -> None:
         super().__init__()
+        self.robust_on_open = robust_on_open
         self.data_path = Path(data_path)
         self.settings = settings
         self._groupings = groupings
@@ -194,6 +197,8 @@ class FoldsiftApp(App[int]):
                 f"; {earlier} review(s) were made on an earlier version of the data (italics)"
             )
         self._set_status()
+        if self.robust_on_open:
+            self.action_robust_shown()
 
     def _show_error(self, text: str) -> None:
         self._message = text
@@ -209,6 +214,7 @@ class FoldsiftApp(App[int]):
         labels = {name: readable_outcome(name) for name in self.result.table.outcomes}
         return joined.with_columns(
             outcome_label=pl.col("outcome").replace_strict(labels, return_dtype=pl.Utf8),
+            change_size=pl.col("log2_ratio").abs(),
             warning_count=pl.when(pl.col("warnings") == "")
             .then(0)
             .otherwise(pl.col("warnings").str.count_matches(";") + 1),
@@ -604,7 +610,7 @@ class FoldsiftApp(App[int]):
             frame = self.base
         else:
             frame = self.base.filter(pl.col("flagged"))
-        frame = frame.drop("warning_count", "outcome_label").join(
+        frame = frame.drop("warning_count", "outcome_label", "change_size").join(
             self.robust_frame(), on="key", how="left"
         )
         return frame.with_columns(sentence_column(frame))
@@ -702,4 +708,5 @@ def make_app(
         outcomes=getattr(args, "outcome", None),
         reviews=reviews,
         export_dir=export_dir,
+        robust_on_open=bool(getattr(args, "robust", False)),
     )

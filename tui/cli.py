@@ -33,6 +33,16 @@ def _confidence(text: str) -> float:
     return value
 
 
+def _resamples(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number; use e.g. 2000") from None
+    if value < 200:
+        raise argparse.ArgumentTypeError(f"{text}: BCa intervals need at least 200 resamples")
+    return value
+
+
 def _ratio(text: str) -> float:
     try:
         value = float(text)
@@ -260,7 +270,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     scan.add_argument(
         "--resamples",
-        type=int,
+        type=_resamples,
         default=2000,
         metavar="N",
         help="bootstrap resamples (default 2000)",
@@ -269,6 +279,11 @@ def build_parser() -> argparse.ArgumentParser:
     add_scan_options(review, data_required=False)
     review.add_argument(
         "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
+    )
+    review.add_argument(
+        "--robust",
+        action="store_true",
+        help="cross-check every comparison in the background after opening (progress shown)",
     )
     export = commands.add_parser("export", help="write reviewed rows to CSV without the app")
     add_scan_options(export, data_required=False)

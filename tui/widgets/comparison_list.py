@@ -78,7 +78,8 @@ COLUMNS: tuple[Column, ...] = (
     ),
     Column("n b/a", 7, "n_a", lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
     Column("grouping", 8, "grouping", lambda r: r["grouping"]),
-    Column("change", 7, "percent_change", lambda r: _percent(r["percent_change"]), right=True),
+    # Sorted on the size of the change either way (|log ratio|), so 0.25× ranks beside 4×.
+    Column("change", 7, "change_size", lambda r: _percent(r["percent_change"]), right=True),
     Column("decision", 6, "decision", _decision),
     Column("✎", 1, "note", lambda r: "✎" if r.get("note") else " "),
 )
