@@ -377,3 +377,18 @@ def _column_x(title: str) -> int:
             return x + 1
         x += column.width + len(SEPARATOR)
     raise AssertionError(title)
+
+
+async def test_keys_typed_right_after_slash_land_in_the_filter(tmp_path: Path) -> None:
+    """A burst like "/copper" (fast typing, a paste over SSH) reaches the list before focus
+    has moved; every character must still end up in the filter line (project contract:
+    nothing typed is lost)."""
+    from textual import events
+
+    async with running(tmp_path) as (app, pilot):
+        burst = [("slash", "/")] + [(ch, ch) for ch in "copper"]
+        for key, character in burst:  # all queued at once, as a terminal delivers them
+            app.post_message(events.Key(key, character))
+        await until(pilot, lambda: app.filter_text == "copper", "burst typed into the filter")
+        assert isinstance(app.focused, Input)
+        assert all("copper" in key for key in shown(app)["key"])

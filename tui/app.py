@@ -9,7 +9,7 @@ from pathlib import Path
 
 import polars as pl
 from rich.text import Text
-from textual import on, work
+from textual import events, on, work
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, VerticalScroll
@@ -281,8 +281,25 @@ class FoldsiftApp(App[int]):
     def filter_submitted(self) -> None:
         self.query_one(ComparisonList).focus()
 
+    def on_key(self, event: events.Key) -> None:
+        # A key reaches the app after bubbling up from the widget it was queued for. When
+        # "/" is followed at once by more keys (a fast typist, a paste over SSH), those were
+        # queued for the list before focus moved: hand them to the filter line instead of
+        # losing them. Keys the filter itself receives never bubble this far.
+        field = self.focused
+        if (
+            isinstance(field, Input)
+            and field.id == "filter"
+            and event.is_printable
+            and event.character
+        ):
+            field.insert_text_at_cursor(event.character)
+            event.stop()
+
     def action_focus_filter(self) -> None:
-        self.query_one("#filter", Input).focus()
+        # Focus at once, not on the next idle (Widget.focus): keys typed right after "/"
+        # (a fast typist, a paste over SSH) must land in the filter, not in the list.
+        self.screen.set_focus(self.query_one("#filter", Input))
 
     def action_next_sort(self) -> None:
         index = SORTABLE.index(self.sort_on) if self.sort_on in SORTABLE else -1
