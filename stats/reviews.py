@@ -268,15 +268,20 @@ class ReviewStore:
 def default_review_path(data_path: Path) -> Path:
     """Where the reviews for ``data_path`` live by default.
 
-    Beside the data file as ``<name>.reviews.sqlite`` when that directory is writable;
-    otherwise (say, data shipped inside an installed package) under
-    ``$XDG_DATA_HOME/foldsift/reviews/`` with a name made unique by a hash of the data path.
+    Beside the data file as ``<name>.reviews.sqlite`` when that directory is writable and
+    not part of an installed package (a reinstall would delete the reviews: the demo data
+    lives there); otherwise under ``$XDG_DATA_HOME/foldsift/reviews/`` with a name made
+    unique by a hash of the data path.
     """
     data_path = Path(data_path).expanduser().absolute()
     beside = data_path.with_name(data_path.name + ".reviews.sqlite")
+    installed = any(part in ("site-packages", "dist-packages") for part in data_path.parts)
     # WAL mode creates -wal and -shm files next to the database, so the directory itself
     # must be writable, not just an existing review file.
-    if _dir_writable(data_path.parent) and (not beside.exists() or os.access(beside, os.W_OK)):
+    writable = _dir_writable(data_path.parent) and (
+        not beside.exists() or os.access(beside, os.W_OK)
+    )
+    if writable and not installed:
         return beside
     # Hash the resolved path so two data files with the same name do not share reviews.
     digest = hashlib.sha256(os.fsencode(data_path.resolve())).hexdigest()[:12]

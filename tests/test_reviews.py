@@ -464,3 +464,17 @@ def test_changes_from_several_killed_processes_accumulate(tmp_path: Path) -> Non
     assert first is not None and second is not None
     assert (first.flagged, first.decision, first.note) == (True, "drop", "")
     assert (second.flagged, second.decision, second.note) == (False, None, NOTE)
+
+
+def test_default_review_path_avoids_installed_packages(tmp_path, monkeypatch):
+    """Data inside an installed package (the demo, after `pip install .`) keeps its reviews
+    under XDG_DATA_HOME even when the package folder is writable (root): a reinstall would
+    otherwise delete them."""
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "xdg"))
+    package = tmp_path / "lib" / "python3.11" / "site-packages" / "foldsift" / "demo"
+    package.mkdir(parents=True)
+    data = package / "survey.csv"
+    data.write_text("site,value\na,1\n")
+    path = default_review_path(data)
+    assert path.is_relative_to(tmp_path / "xdg" / "foldsift" / "reviews")
+    assert path.name.startswith("survey-")
