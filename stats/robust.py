@@ -14,6 +14,7 @@ Mann–Whitney statistic (Hollander, Wolfe & Chicken, Nonparametric Statistical 
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -195,26 +196,71 @@ def _kth_difference(x: np.ndarray, y: np.ndarray, rank: int, enumerate_at: int =
     return float(inside[rank - count_low - 1])
 
 
+#: Up to this many pairs the CI ranks come from the exact null distribution of the
+#: Mann–Whitney statistic; beyond it from its normal approximation.
+EXACT_RANK_PAIRS = 2500
+
+
+@functools.lru_cache(maxsize=256)
+def _mann_whitney_null(n: int, m: int) -> np.ndarray:
+    """P(U = u), u = 0..n*m, for U = #{y_j > x_i} with no ties, by the recursion
+    P_{n,m}(u) = n/(n+m) P_{n-1,m}(u - m) + m/(n+m) P_{n,m-1}(u) (Mann & Whitney 1947)."""
+    # row[j] holds P_{i,j} for the current i; start with i = 0: U = 0 surely.
+    row = [np.ones(1) for _ in range(m + 1)]
+    for i in range(1, n + 1):
+        new_row = [np.ones(1)]  # P_{i,0}: U = 0 surely
+        for j in range(1, m + 1):
+            size = i * j + 1
+            probabilities = np.zeros(size)
+            shifted = row[j]  # P_{i-1,j}, moved up by j
+            probabilities[j : j + shifted.size] += i / (i + j) * shifted
+            left = new_row[j - 1]  # P_{i,j-1}
+            probabilities[: left.size] += j / (i + j) * left
+            new_row.append(probabilities)
+        row = new_row
+    return row[m]
+
+
+def hl_rank(n: int, m: int, confidence: float = 0.95) -> int:
+    """The rank k of the CI (k-th smallest and k-th largest pairwise difference).
+
+    k is the largest integer with P(U <= k - 1) <= (1 - confidence) / 2 under the null, from
+    the exact distribution for small samples (Hollander, Wolfe & Chicken 2014, sec. 4.3) and
+    the normal approximation k = floor(nm/2 - z sqrt(nm(n+m+1)/12)) otherwise. 0 means the
+    samples are too small for that confidence."""
+    total = n * m
+    tail = (1 - confidence) / 2
+    if total <= EXACT_RANK_PAIRS:
+        cumulative = np.cumsum(_mann_whitney_null(n, m))
+        # P(U <= k - 1) <= tail for k = 1..K: count the u = k - 1 that qualify.
+        return int(np.sum(cumulative <= tail * (1 + 1e-12)))
+    z = sps.norm.ppf(1 - tail)
+    return max(int(math.floor(total / 2 - z * math.sqrt(total * (n + m + 1) / 12))), 0)
+
+
 def hodges_lehmann(
     x_logs: np.ndarray, y_logs: np.ndarray, confidence: float = 0.95
 ) -> tuple[float, float, float]:
-    """Hodges–Lehmann shift of y over x (on the scale given) with its CI."""
+    """Hodges–Lehmann shift of y over x (on the scale given) with its CI; the CI is NaN when
+    the samples are too small to reach the confidence level."""
     x = np.sort(x_logs)
     y = np.sort(y_logs)
     n, m = x.size, y.size
     total = n * m
-    z = sps.norm.ppf(0.5 + confidence / 2)
-    critical = int(math.floor(total / 2 - z * math.sqrt(total * (n + m + 1) / 12)))
-    critical = max(critical, 1)
+    rank = hl_rank(n, m, confidence)
     if total <= _BRUTE_FORCE_PAIRS:
         differences = np.sort(np.subtract.outer(y, x).ravel())
         shift = float(np.median(differences))
-        return shift, float(differences[critical - 1]), float(differences[total - critical])
+        if rank < 1:
+            return shift, math.nan, math.nan
+        return shift, float(differences[rank - 1]), float(differences[total - rank])
     if total % 2:
         shift = _kth_difference(x, y, total // 2 + 1)
     else:
         shift = (_kth_difference(x, y, total // 2) + _kth_difference(x, y, total // 2 + 1)) / 2
-    return shift, _kth_difference(x, y, critical), _kth_difference(x, y, total - critical + 1)
+    if rank < 1:
+        return shift, math.nan, math.nan
+    return shift, _kth_difference(x, y, rank), _kth_difference(x, y, total - rank + 1)
 
 
 class GroupValues:
@@ -272,6 +318,7 @@ def robust_check(
         hl_ci_low=math.exp(shift_low),
         hl_ci_high=math.exp(shift_high),
         mann_whitney_p=float(mw.pvalue),
+        reason="" if math.isfinite(shift_low) else "too few values for a Hodges-Lehmann CI",
     )
 
 

@@ -106,3 +106,51 @@ def test_two_sample_bca_matches_scipy(confidence):
     low, high = bca_interval(ratio(a, b), result.bootstrap_distribution, jackknife, confidence)
     expected = result.confidence_interval
     np.testing.assert_allclose([low, high], [expected.low, expected.high], rtol=1e-12)
+
+
+@pytest.mark.parametrize(("n", "m"), [(1, 4), (2, 7), (3, 4), (5, 5), (4, 6)])
+def test_mann_whitney_null_matches_enumeration(n, m):
+    """P(U = u) under the null equals the share of the C(n+m, n) equally likely rank
+    splits with that U (Mann & Whitney 1947, definition)."""
+    from foldsift.stats.robust import _mann_whitney_null
+
+    counts = Counter()
+    splits = list(itertools.combinations(range(n + m), n))
+    for x_ranks in splits:
+        y_ranks = [r for r in range(n + m) if r not in x_ranks]
+        counts[sum(y > x for x in x_ranks for y in y_ranks)] += 1
+    expected = np.array([counts[u] / len(splits) for u in range(n * m + 1)])
+    np.testing.assert_allclose(_mann_whitney_null(n, m), expected, rtol=1e-12, atol=1e-15)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_mann_whitney_null_matches_scipy_exact_p(seed):
+    """The lower tail P(U <= u) equals scipy.stats.mannwhitneyu(method='exact')'s
+    one-sided p for untied data (independent implementation)."""
+    from foldsift.stats.robust import _mann_whitney_null
+
+    rng = np.random.default_rng(seed)
+    n, m = int(rng.integers(3, 12)), int(rng.integers(3, 12))
+    x, y = rng.normal(size=n), rng.normal(0.5, 1.0, size=m)
+    u = int(np.sum(y[:, None] > x[None, :]))  # U = #{y_j > x_i}
+    scipy_p = sps.mannwhitneyu(y, x, alternative="less", method="exact").pvalue
+    ours = float(np.cumsum(_mann_whitney_null(n, m))[u])
+    assert ours == pytest.approx(scipy_p, rel=1e-10)
+
+
+def test_hl_rank_exact_normal_and_unattainable():
+    """Exact ranks hold the tail at most (1 - confidence) / 2 and are the largest that do;
+    large samples use the normal approximation (Hollander, Wolfe & Chicken 2014, 4.3);
+    two values per group cannot reach 95% (the smallest two-sided p is 2/6)."""
+    from foldsift.stats.robust import _mann_whitney_null, hl_rank, hodges_lehmann
+
+    for n, m in [(5, 5), (8, 11), (20, 30), (48, 47)]:
+        k = hl_rank(n, m, 0.95)
+        cumulative = np.cumsum(_mann_whitney_null(n, m))
+        assert cumulative[k - 1] <= 0.025 < cumulative[k]
+    n, m = 60, 70
+    z = sps.norm.ppf(0.975)
+    assert hl_rank(n, m) == int(np.floor(n * m / 2 - z * np.sqrt(n * m * (n + m + 1) / 12)))
+    assert hl_rank(2, 2) == 0
+    shift, low, high = hodges_lehmann(np.array([0.0, 1.0]), np.array([2.0, 3.0]))
+    assert shift == 2.0 and np.isnan(low) and np.isnan(high)

@@ -32,9 +32,10 @@ def _brute_hl(x: np.ndarray, y: np.ndarray, confidence: float = 0.95):
     """Hodges-Lehmann shift of y over x and its CI, straight from the definition."""
     differences = np.sort((y[:, None] - x[None, :]).ravel())
     total = differences.size
-    z = sps.norm.ppf(0.5 + confidence / 2)
-    rank = max(1, math.floor(total / 2 - z * math.sqrt(total * (x.size + y.size + 1) / 12)))
+    rank = robust.hl_rank(x.size, y.size, confidence)  # checked on its own in test_hl_rank*
     # 1-based ranks rank and total + 1 - rank (Hollander, Wolfe & Chicken 2014, sec. 4.3)
+    if rank < 1:
+        return float(np.median(differences)), math.nan, math.nan
     return float(np.median(differences)), differences[rank - 1], differences[total - rank]
 
 
