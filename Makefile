@@ -17,10 +17,11 @@ setup: $(BIN)/foldsift
 demo: setup
 	$(BIN)/foldsift review
 
-# Lint, format check and the whole test suite; "no tests collected" fails.
+# Lint, format check, type check and the whole test suite; "no tests collected" fails.
 test: setup
 	$(BIN)/ruff check stats tui demo tests
 	$(BIN)/ruff format --check stats tui demo tests
+	$(BIN)/mypy stats tui demo
 	$(BIN)/python -m pytest -q -p no:cacheprovider tests
 
 bench: setup

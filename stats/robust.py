@@ -45,7 +45,16 @@ class RobustCheck:
     reason: str = ""
 
 
-NAN_CHECK = RobustCheck(*([math.nan] * 7), reason="too few values")
+NAN_CHECK = RobustCheck(
+    median_ratio=math.nan,
+    median_ratio_ci_low=math.nan,
+    median_ratio_ci_high=math.nan,
+    hl_ratio=math.nan,
+    hl_ci_low=math.nan,
+    hl_ci_high=math.nan,
+    mann_whitney_p=math.nan,
+    reason="too few values",
+)
 
 
 def bootstrap_medians(values: np.ndarray, resamples: int, rng: np.random.Generator) -> np.ndarray:

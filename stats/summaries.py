@@ -12,21 +12,23 @@ import polars as pl
 from .load import CENSORED_SUFFIX
 from .policy import EXCLUDED, SUBSTITUTED, USED
 
-SUMMARY_SCHEMA = {
-    "grouping": pl.Utf8,
-    "level": pl.Utf8,
-    "outcome": pl.Utf8,
-    "n": pl.Int64,
-    "n_missing": pl.Int64,
-    "n_excluded": pl.Int64,
-    "n_substituted": pl.Int64,
-    "n_censored": pl.Int64,
-    "mean_log": pl.Float64,
-    "ss_log": pl.Float64,
-    "median": pl.Float64,
-    "skew_log": pl.Float64,
-    "skew_raw": pl.Float64,
-}
+SUMMARY_SCHEMA = pl.Schema(
+    {
+        "grouping": pl.Utf8,
+        "level": pl.Utf8,
+        "outcome": pl.Utf8,
+        "n": pl.Int64,
+        "n_missing": pl.Int64,
+        "n_excluded": pl.Int64,
+        "n_substituted": pl.Int64,
+        "n_censored": pl.Int64,
+        "mean_log": pl.Float64,
+        "ss_log": pl.Float64,
+        "median": pl.Float64,
+        "skew_log": pl.Float64,
+        "skew_raw": pl.Float64,
+    }
+)
 
 LOG = "__log"  # the log of the used value, computed once per outcome before aggregating
 

@@ -209,7 +209,7 @@ class FoldsiftApp(App[int]):
         self.query_one("#sentence", Static).update(Text(text, style="bold red"))
 
     def _with_reviews(self, comparisons: pl.DataFrame) -> pl.DataFrame:
-        assert self.store is not None
+        assert self.store is not None and self.result is not None
         joined = join_reviews(comparisons, self.store.frame())
         labels = {name: readable_outcome(name) for name in self.result.table.outcomes}
         return joined.with_columns(
