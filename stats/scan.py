@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 import polars as pl
@@ -17,6 +17,7 @@ from .ttest import TESTS, log_t_test
 
 PAIRS = ("all", "reference")
 KEY_SEPARATOR = "|"
+WITHIN = " within "  # joins a grouping and its stratum in a stratified grouping's name
 
 #: The columns every scan CSV starts with, in this order.
 LEADING_COLUMNS = (
@@ -52,6 +53,7 @@ class ScanSettings:
     family: str = "scan"
     band: tuple[float, float] = equivalence.DEFAULT_BAND
     target_ratio: float | None = None
+    within: str | None = None
 
     def __post_init__(self) -> None:
         if self.pairs not in PAIRS:
@@ -87,7 +89,7 @@ def _reference_for(grouping: str, levels: list[str], references: tuple[str, ...]
     for item in references:
         if "=" in item:
             name, _, level = item.partition("=")
-            if name == grouping and level in levels:
+            if name == grouping.partition(WITHIN)[0] and level in levels:
                 return level
         elif item in levels:
             return item
@@ -104,7 +106,7 @@ def build_pairs(summaries: pl.DataFrame, settings: ScanSettings) -> pl.DataFrame
     for grouping, levels in levels_by_grouping:
         ordered = level_order(list(levels))
         all_levels.update(ordered)
-        all_levels.update(f"{grouping}={level}" for level in ordered)
+        all_levels.update(f"{grouping.partition(WITHIN)[0]}={level}" for level in ordered)
         if settings.pairs == "reference":
             reference = _reference_for(grouping, ordered, settings.reference)
             pairs = [(reference, level) for level in ordered if level != reference]
@@ -154,9 +156,37 @@ class ScanResult:
         }
 
 
+def stratify(table: Table, within: str) -> Table:
+    """Compare inside each level of ``within``: every other grouping g becomes one grouping
+    per stratum s, named ``"g within w=s"``, whose value is g's level on the rows of s and
+    missing elsewhere. Everything downstream then works unchanged."""
+    if within not in table.groupings:
+        raise InputError(
+            f"{table.name}: --within {within!r} is not a grouping column; "
+            f"groupings are: {', '.join(table.groupings)}"
+        )
+    others = [g for g in table.groupings if g != within]
+    if not others:
+        raise InputError(
+            f"{table.name}: --within {within!r} needs another grouping column to compare "
+            "inside its levels; name one with --group"
+        )
+    strata = level_order(table.frame[within].drop_nulls().unique().to_list())
+    derived: list[pl.Expr] = []
+    names: list[str] = []
+    for grouping in others:
+        for stratum in strata:
+            name = f"{grouping}{WITHIN}{within}={stratum}"
+            names.append(name)
+            derived.append(pl.when(pl.col(within) == stratum).then(pl.col(grouping)).alias(name))
+    return replace(table, frame=table.frame.with_columns(derived), groupings=tuple(names))
+
+
 def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
     """Compute every comparison of the table under the settings."""
     settings = settings or ScanSettings()
+    if settings.within is not None:
+        table = stratify(table, settings.within)
     used = apply_policy(table.frame, table.outcomes, settings.policy)
     summaries = group_summaries(used, table.groupings, table.outcomes)
     normality = diagnostics.group_normality(used, table.groupings, table.outcomes)

@@ -55,7 +55,18 @@ def _p_digits(value: float) -> str:
 
 
 def _group(grouping: str, level: str) -> str:
-    return level if grouping.lower() in level.lower() else f"{grouping} {level}"
+    """``field`` + ``ashgrove`` -> "field ashgrove" (a stratified grouping's own name)."""
+    base = grouping.partition(" within ")[0]
+    return level if base.lower() in level.lower() else f"{base} {level}"
+
+
+def _stratum(grouping: str) -> str:
+    """``field within season=spring`` -> ", within season spring"; else ""."""
+    stratum = grouping.partition(" within ")[2]
+    if not stratum:
+        return ""
+    name, _, value = stratum.partition("=")
+    return f", within {name} {value}"
 
 
 def finding(row: dict) -> str:
@@ -69,7 +80,8 @@ def finding(row: dict) -> str:
             w for w in (row.get("warnings") or "").split(";") if w in ("too-few", "no-spread")
         ]
         why = "too few usable values" if "too-few" in reasons else "no spread in the values"
-        return f"{outcome}: {group_b} against {group_a} cannot be compared ({why})."
+        where = _stratum(row["grouping"])
+        return f"{outcome}: {group_b} against {group_a}{where} cannot be compared ({why})."
     warnings = set((row.get("warnings") or "").split(";"))
     doubtful = sorted(warnings & set(SYMMETRY_WARNINGS))
     level = round(100 * float(row.get("confidence") or 0.95))
@@ -79,7 +91,10 @@ def finding(row: dict) -> str:
         f"{test} t-test on logs, {p_text(row.get('p_value'), 'p')}, {p_text(row.get('q_bh'), 'q')}"
     )
     measure = "Geometric-mean" if doubtful else "Median"
-    text = f"{measure} {outcome} in {group_b} is {ratio_text(ratio)}× that in {group_a} ({detail})."
+    text = (
+        f"{measure} {outcome} in {group_b} is {ratio_text(ratio)}× that in {group_a}"
+        f"{_stratum(row['grouping'])} ({detail})."
+    )
     low, high = row["ci_low"], row["ci_high"]
     if low is not None and high is not None and low <= 1 <= high:
         text += " The interval includes 1: no clear difference."

@@ -392,3 +392,27 @@ async def test_keys_typed_right_after_slash_land_in_the_filter(tmp_path: Path) -
         await until(pilot, lambda: app.filter_text == "copper", "burst typed into the filter")
         assert isinstance(app.focused, Input)
         assert all("copper" in key for key in shown(app)["key"])
+
+
+async def test_review_within_strata(tmp_path: Path) -> None:
+    """`review --within season` lists the comparisons inside each season, draws their
+    charts from that season's rows and says so in the sentence and the list."""
+    from foldsift.tui.app import make_app
+    from foldsift.tui.cli import build_parser
+
+    args = build_parser().parse_args(["review", str(demo_path()), "--within", "season"])
+    app = make_app(demo_path(), args, reviews=tmp_path / "r.sqlite", export_dir=tmp_path)
+    async with app.run_test(size=SIZE) as pilot:
+        await until(pilot, lambda: app.result is not None, "scan", timeout=30)
+        await pilot.pause(0.2)
+        row = current(app)
+        assert " within season=" in row["grouping"]
+        assert "within season" in sentence(app)
+        assert "field·" in listing(app).render_line(1).text
+        season = row["grouping"].rpartition("=")[2]
+        used = app.result.used
+        expected = used.filter((pl.col("season") == season) & (pl.col("field") == row["level_a"]))[
+            row["outcome"] + USED
+        ].drop_nulls()
+        values = app._values.values(row["grouping"], row["level_a"], row["outcome"])
+        assert sorted(values.tolist()) == sorted(expected.to_list())

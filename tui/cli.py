@@ -63,6 +63,11 @@ def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = T
     roles = parser.add_argument_group("columns")
     roles.add_argument("--group", action="append", metavar="COL", help="grouping column (repeat)")
     roles.add_argument("--outcome", action="append", metavar="COL", help="outcome column (repeat)")
+    roles.add_argument(
+        "--within",
+        metavar="COL",
+        help="compare inside each level of this grouping column (strata), not pooled over it",
+    )
     method = parser.add_argument_group("method")
     method.add_argument(
         "--pairs",
@@ -130,6 +135,7 @@ def settings_from(args: argparse.Namespace) -> ScanSettings:
         family=args.family,
         band=tuple(args.band),
         target_ratio=args.target_ratio,
+        within=args.within,
     )
 
 

@@ -56,6 +56,12 @@ class Column:
     right: bool = False
 
 
+def _grouping(name: str) -> str:
+    """``field within season=spring`` (a stratified grouping) is shown as ``field·spring``."""
+    base, _, stratum = name.partition(" within ")
+    return f"{base}·{stratum.partition('=')[2]}" if stratum else base
+
+
 def _decision(row: dict) -> str:
     return row.get("decision") or ""
 
@@ -63,8 +69,8 @@ def _decision(row: dict) -> str:
 # Most-read columns first, so an 80-column terminal shows the finding without scrolling.
 COLUMNS: tuple[Column, ...] = (
     Column("⚑", 1, "flagged", lambda r: "⚑" if r.get("flagged") else " "),
-    Column("outcome", 20, "outcome", lambda r: readable_outcome(r["outcome"])),
-    Column("level b ÷ level a", 22, "level_b", lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
+    Column("outcome", 19, "outcome", lambda r: readable_outcome(r["outcome"])),
+    Column("level b ÷ level a", 20, "level_b", lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
     Column("ratio", 6, "ratio", lambda r: _ratio(r["ratio"]), right=True),
     Column("CI", 11, "ci_low", lambda r: f"{_ratio(r['ci_low'])}–{_ratio(r['ci_high'])}"),
     Column("q", 6, "q_bh", lambda r: _p(r["q_bh"]), right=True),
@@ -77,7 +83,7 @@ COLUMNS: tuple[Column, ...] = (
         right=True,
     ),
     Column("n b/a", 7, "n_a", lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
-    Column("grouping", 8, "grouping", lambda r: r["grouping"]),
+    Column("grouping", 12, "grouping", lambda r: _grouping(r["grouping"])),
     # Sorted on the size of the change either way (|log ratio|), so 0.25× ranks beside 4×.
     Column("change", 7, "change_size", lambda r: _percent(r["percent_change"]), right=True),
     Column("decision", 6, "decision", _decision),
