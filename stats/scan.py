@@ -191,13 +191,27 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
     summaries = group_summaries(used, table.groupings, table.outcomes)
     normality = diagnostics.group_normality(used, table.groupings, table.outcomes)
     summaries = summaries.join(normality, on=["grouping", "level", "outcome"], how="left")
-    summaries = summaries.with_columns(
+    summaries = complete_summaries(summaries)
+    comparisons = compare_summaries(summaries, settings, table.outcomes)
+    return ScanResult(comparisons, summaries, settings, table, used)
+
+
+def complete_summaries(summaries: pl.DataFrame) -> pl.DataFrame:
+    """Add the derived per-group figures: geometric mean, log SD, censored share."""
+    return summaries.with_columns(
         gm=pl.col("mean_log").exp(),
         sd_log=(pl.col("ss_log") / (pl.col("n") - 1)).sqrt(),
         censored_share=pl.col("n_censored") / (pl.col("n") + pl.col("n_excluded")).cast(pl.Float64),
     ).with_columns(
         sd_log=pl.when(pl.col("n") >= 2).then(pl.col("sd_log")).otherwise(None),
     )
+
+
+def compare_summaries(
+    summaries: pl.DataFrame, settings: ScanSettings, outcomes: tuple[str, ...]
+) -> pl.DataFrame:
+    """Every comparison from per-group summaries (one row per grouping × level × outcome):
+    the part of the scan that needs no raw values."""
     pairs = build_pairs(summaries, settings)
     stats_columns = [c for c in summaries.columns if c not in ("grouping", "level", "outcome")]
     side_a = summaries.rename({"level": "level_a", **{c: c + "_a" for c in stats_columns}})
@@ -205,7 +219,7 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
     frame = pairs.join(side_a, on=["grouping", "level_a"], how="inner").join(
         side_b, on=["grouping", "outcome", "level_b"], how="inner"
     )
-    order = {name: index for index, name in enumerate(table.outcomes)}
+    order = {name: index for index, name in enumerate(outcomes)}
     frame = (
         frame.with_columns(
             pl.col("outcome").replace_strict(order, return_dtype=pl.Int64).alias("__outcome_order")
@@ -285,7 +299,7 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
             "key"
         ),
     )
-    return ScanResult(frame.select(ordered_columns(frame)), summaries, settings, table, used)
+    return frame.select(ordered_columns(frame))
 
 
 def ordered_columns(frame: pl.DataFrame) -> list[str]:

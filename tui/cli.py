@@ -171,6 +171,8 @@ def command_scan(args: argparse.Namespace) -> int:
     from foldsift.stats.sentence import sentence_column
 
     _check_out(args.out)
+    if args.summary:
+        return _scan_summary(args)
     result = load_and_scan(args)
     table = result.table
     print(
@@ -188,13 +190,34 @@ def command_scan(args: argparse.Namespace) -> int:
     if args.robust:
         comparisons = robust_all(result, resamples=args.resamples, progress=_progress_bar)
         print(file=sys.stderr)
-    comparisons = comparisons.with_columns(sentence_column(comparisons))
-    if args.out is None:
+    return _write_scan(comparisons.with_columns(sentence_column(comparisons)), args.out)
+
+
+def _write_scan(comparisons, out: Path | None) -> int:
+    if out is None:
         sys.stdout.write(comparisons.write_csv())
     else:
-        comparisons.write_csv(args.out)
-        print(f"foldsift: wrote {comparisons.height} rows to {args.out}", file=sys.stderr)
+        comparisons.write_csv(out)
+        print(f"foldsift: wrote {comparisons.height} rows to {out}", file=sys.stderr)
     return 0
+
+
+def _scan_summary(args: argparse.Namespace) -> int:
+    from foldsift.stats.sentence import sentence_column
+    from foldsift.stats.summary_input import scan_summary_table
+
+    if args.robust:
+        return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
+    if args.group or args.outcome:
+        return _fail(f"{args.data}: a summary table names its groupings and outcomes itself")
+    comparisons, metadata = scan_summary_table(args.data, settings_from(args))
+    print(
+        f"foldsift: {args.data.name}: summary table, {len(metadata['groupings'])} grouping(s), "
+        f"{len(metadata['outcomes'])} outcome(s), {comparisons.height} comparisons "
+        "(medians, normality checks and cross-checks need raw values)",
+        file=sys.stderr,
+    )
+    return _write_scan(comparisons.with_columns(sentence_column(comparisons)), args.out)
 
 
 def _progress_bar(done: int, total: int) -> None:
@@ -269,6 +292,11 @@ def build_parser() -> argparse.ArgumentParser:
     scan = commands.add_parser("scan", help="compute every comparison and write CSV")
     add_scan_options(scan)
     scan.add_argument("--out", type=Path, metavar="FILE.csv", help="write here instead of stdout")
+    scan.add_argument(
+        "--summary",
+        action="store_true",
+        help="DATA is a summary table: grouping, level, outcome, n, mean_log, sd_log per group",
+    )
     scan.add_argument(
         "--robust",
         action="store_true",
