@@ -375,9 +375,9 @@ class FoldsiftApp(App[int]):
         if row is None:
             sentence.update(Text("No comparison matches the filter.", style="italic"))
             return
-        text = facts_text(row, self.settings.band, self.robust.get(row["key"]))
         # A layout pass costs more than the paint: only ask for one when the height changes.
         width = max(sentence.size.width, 20)
+        text = facts_text(row, self.settings.band, self.robust.get(row["key"]), width)
         lines = len(text.wrap(self.console, width))
         if lines != self._facts_lines:
             self._facts_lines = lines

@@ -20,23 +20,27 @@ def _count(value: int | None) -> str:
     return "–" if value is None else str(value)
 
 
-def facts_text(row: dict, band: tuple[float, float], check: RobustCheck | None) -> Text:
+def facts_text(
+    row: dict, band: tuple[float, float], check: RobustCheck | None, width: int = 80
+) -> Text:
+    """The facts as one Text; ``width`` narrows the columns so that rows fit a small pane."""
+    label_width, value_width = (LABEL_WIDTH, VALUE_WIDTH) if width >= 46 else (15, 10)
     text = Text()
     text.append(finding(row) + "\n\n", style="bold")
-    text.append(" " * LABEL_WIDTH)
+    text.append(" " * label_width)
     text.append(
-        f"a: {row['level_a']}"[: VALUE_WIDTH - 1].ljust(VALUE_WIDTH), style=f"bold {STYLE_A}"
+        f"a: {row['level_a']}"[: value_width - 1].ljust(value_width), style=f"bold {STYLE_A}"
     )
-    text.append(f"b: {row['level_b']}"[: VALUE_WIDTH - 1] + "\n", style=f"bold {STYLE_B}")
+    text.append(f"b: {row['level_b']}"[: value_width - 1] + "\n", style=f"bold {STYLE_B}")
 
     def pair(label: str, name: str, fmt=number) -> None:
-        text.append(label.ljust(LABEL_WIDTH))
-        text.append(fmt(row.get(name + "_a")).ljust(VALUE_WIDTH), style=STYLE_A)
+        text.append(label[:label_width].ljust(label_width))
+        text.append(fmt(row.get(name + "_a")).ljust(value_width), style=STYLE_A)
         text.append(fmt(row.get(name + "_b")) + "\n", style=STYLE_B)
 
     def line(label: str, value: str, extra: str = "") -> None:
-        text.append(label.ljust(LABEL_WIDTH))
-        text.append(value.ljust(VALUE_WIDTH), style="bold")
+        text.append(label[:label_width].ljust(label_width))
+        text.append(value.ljust(value_width), style="bold")
         text.append(extra + "\n")
 
     pair("n used", "n", _count)
