@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import csv
 import hashlib
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -158,7 +159,27 @@ def read_raw(path: Path | str) -> pl.DataFrame:
     if frame.height == 0:
         raise InputError(f"{path}: has a header but no data rows; nothing to compare")
     frame = frame.rename({name: name.strip() for name in frame.columns})
+    if separator != ",":
+        frame = _decimal_commas(frame)
     return frame
+
+
+_DECIMAL_COMMA = r"^(\s*<?\s*-?\d+),(\d+\s*)$"
+
+
+def _decimal_commas(frame: pl.DataFrame) -> pl.DataFrame:
+    """Files separated by ; or tabs often write 1,5 for 1.5: read a column's decimal commas
+    when every one of its non-empty entries is a number written that way or a plain one."""
+    changes = []
+    for name in frame.columns:
+        text = frame[name].drop_nulls().str.strip_chars()
+        text = text.filter(text != "")
+        with_comma = text.str.contains(_DECIMAL_COMMA)
+        if text.len() and with_comma.any():
+            plain = text.str.contains(r"^<?\s*-?\d+(\.\d+)?$")
+            if (with_comma | plain).all():
+                changes.append(pl.col(name).str.replace(_DECIMAL_COMMA, "$1.$2"))
+    return frame.with_columns(changes) if changes else frame
 
 
 def _parse_outcome(column: pl.Expr) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
@@ -200,6 +221,19 @@ def _is_numeric_column(frame: pl.DataFrame, name: str) -> bool:
     return _numeric_share(frame.select(name))[name] >= NUMERIC_SHARE
 
 
+_ID_NAME = re.compile(r"(^|[_ .-])(id|no|num|number|index|idx|sample|row)$", re.IGNORECASE)
+
+
+def _looks_like_identifier(name: str, values: pl.Series, distinct: int) -> bool:
+    """Whole numbers, one per row, named like an identifier or running 0/1..n in steps of 1."""
+    if distinct != values.len() or distinct < 3:
+        return False
+    if _ID_NAME.search(name):
+        return True
+    numbers = values.cast(pl.Int64, strict=False).drop_nulls().sort()
+    return numbers.len() == distinct and bool((numbers.diff().drop_nulls() == 1).all())
+
+
 def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
     """Guess grouping and outcome columns of a raw frame."""
     groupings: list[str] = []
@@ -216,6 +250,8 @@ def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
         if name in shares and shares[name] >= NUMERIC_SHARE:
             text_values = frame[name].drop_nulls().str.strip_chars()
             integer_like = text_values.str.contains(r"^-?\d+$").all()
+            if integer_like and _looks_like_identifier(name, text_values, distinct):
+                continue  # a sample number, not a measurement nor a grouping
             if integer_like and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
                 groupings.append(name)
             else:

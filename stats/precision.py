@@ -59,7 +59,8 @@ def detectable_ratio(
     )
     if method == "normal":
         delta = (sps.norm.ppf(1 - alpha / 2) + sps.norm.ppf(power)) * scale
-        return np.exp(delta)
+        with np.errstate(over="ignore"):
+            return np.exp(delta)
     if method != "t":
         raise ValueError("method must be 't' or 'normal'")
     df = np.where(valid, n_a + n_b - 2, 2.0)
@@ -73,7 +74,8 @@ def detectable_ratio(
         np.full_like(distinct, 60.0),
         iterations=52,
     )[inverse]
-    return np.where(valid, np.exp(ncp * scale), np.nan)
+    with np.errstate(over="ignore"):  # an enormous log SD honestly gives an infinite ratio
+        return np.where(valid, np.exp(ncp * scale), np.nan)
 
 
 def n_per_group(

@@ -416,3 +416,45 @@ async def test_review_within_strata(tmp_path: Path) -> None:
         ].drop_nulls()
         values = app._values.values(row["grouping"], row["level_a"], row["outcome"])
         assert sorted(values.tolist()) == sorted(expected.to_list())
+
+
+async def test_huge_values_do_not_crash_the_charts(tmp_path: Path) -> None:
+    """A value near the largest float draws as a message on the raw scale, not a crash."""
+    data = tmp_path / "huge.csv"
+    data.write_text("site,v\na,1e308\na,2\na,3\nb,4\nb,5\nb,6\n")
+    async with running(tmp_path, data) as (app, pilot):
+        app._show_plots()
+        await pilot.pause()
+        text = str(app.query_one("#plots", Static).render())
+        assert "too large to draw" in text
+        assert app.error_text is None
+
+
+async def test_ctrl_q_in_the_note_editor_keeps_the_note(tmp_path: Path) -> None:
+    async with running(tmp_path) as (app, pilot):
+        key = current(app)["key"]
+        await pilot.press("n")
+        await until(pilot, lambda: type(app.screen).__name__ == "NoteScreen", "note editor")
+        await pilot.press(*"kept on quit")
+        await pilot.press("ctrl+q")
+        await until(pilot, lambda: not app.is_running, "app closed", timeout=10)
+    with ReviewStore(tmp_path / "r.sqlite", file_fingerprint(demo_path())) as store:
+        review = store.get(key)
+    assert review is not None and review.note == "kept on quit"
+
+
+async def test_unflagging_under_the_flagged_filter_keeps_the_row(tmp_path: Path) -> None:
+    """The row stays under the cursor after a change even when it no longer matches the
+    filter, so a second space toggles the same row back instead of its neighbour."""
+    async with running(tmp_path) as (app, pilot):
+        for _ in range(2):
+            await pilot.press("space", "down")
+        await filter_by_typing(app, pilot, "flagged")
+        first, second = shown(app)["key"].to_list()[:2]
+        await pilot.press("home", "space")
+        await pilot.pause()
+        assert current(app)["key"] == first and not current(app)["flagged"]
+        await pilot.press("space")
+        await pilot.pause()
+        assert current(app)["key"] == first and current(app)["flagged"]
+        assert app.store.get(second).flagged

@@ -124,3 +124,34 @@ def test_censored_share_warning_names_the_rule_of_thumb():
     assert "censored-share" in row["warnings"].split(";")
     assert row["censored_share_b"] == pytest.approx(2 / 6)
     assert row["censored_share_a"] == pytest.approx(1 / 6)
+
+
+def test_semicolon_file_with_decimal_commas(tmp_path):
+    """Bland & Altman (1996) skinfold data written the way many European spreadsheets save
+    CSV (; between fields, decimal commas) reads the same as the plain file: pooled ratio
+    1.3442, 95% CI 0.8919 to 2.0258 (shared reference README, computed)."""
+    source = pl.read_csv(DATA / "bland_altman_1996_skinfold.csv")
+    text = "diagnosis;biceps_skinfold_mm\n" + "".join(
+        f"{d};{str(v).replace('.', ',')}\n" for d, v in source.rows()
+    )
+    path = tmp_path / "skinfold.csv"
+    path.write_text(text)
+    table = load_table(path)
+    assert table.outcomes == ("biceps_skinfold_mm",)
+    row = run_scan(
+        table, ScanSettings(test="pooled", pairs="reference", reference=("coeliac",))
+    ).comparisons.row(0, named=True)
+    assert row["ratio"] == pytest.approx(1.3442, abs=5e-5)
+    assert (row["ci_low"], row["ci_high"]) == pytest.approx((0.8919, 2.0258), abs=5e-5)
+
+
+@pytest.mark.parametrize("name", ["id", "sample_no", "run"])
+def test_running_sample_numbers_are_neither_groupings_nor_outcomes(name):
+    """A whole-number column with one value per row that counts 1, 2, 3, … (or is named like
+    an identifier) numbers the samples; comparing it would be meaningless (common practice)."""
+    frame = pl.DataFrame(
+        {name: [str(i) for i in range(1, 9)], "site": list("aaaabbbb"), "v": ["1.5"] * 8}
+    )
+    table = load_table(frame=frame)
+    assert name not in table.groupings and name not in table.outcomes
+    assert table.groupings == ("site",) and table.outcomes == ("v",)

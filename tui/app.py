@@ -46,11 +46,12 @@ SORT_NAMES = {column.sort_on: column.title for column in COLUMNS} | {
     "note": "note",
     "warning_count": "warnings",
     "level_b": "levels",
-    "n_a": "n",
+    "n_min": "smaller n",
     "ci_low": "CI",
     "change_size": "size of change",
 }
-DECISION_KEYS = {"1": "keep", "2": "doubt", "3": "drop"}
+#: Columns the app adds for sorting, searching and drawing; exports leave them out.
+DISPLAY_ONLY = ("warning_count", "outcome_label", "change_size", "n_min")
 
 
 @dataclass
@@ -135,6 +136,9 @@ class FoldsiftApp(App[int]):
         self._plot_timer: Timer | None = None
         self._message = ""
         self._facts_lines = -1
+        self._facts_key: str | None = None
+        self._note_key: str | None = None
+        self._note_before = ""
         self.error_text: str | None = None
 
     # -- layout -----------------------------------------------------------------------------
@@ -215,6 +219,7 @@ class FoldsiftApp(App[int]):
         return joined.with_columns(
             outcome_label=pl.col("outcome").replace_strict(labels, return_dtype=pl.Utf8),
             change_size=pl.col("log2_ratio").abs(),
+            n_min=pl.min_horizontal("n_a", "n_b"),
             warning_count=pl.when(pl.col("warnings") == "")
             .then(0)
             .otherwise(pl.col("warnings").str.count_matches(";") + 1),
@@ -235,13 +240,16 @@ class FoldsiftApp(App[int]):
                 self._message = ""
         if expression is not None:
             frame = frame.filter(expression)
-        frame = frame.sort(
-            self.sort_on, descending=self.descending, nulls_last=True, maintain_order=True
-        )
+        frame = self._sorted(frame)
         listing.sort_on = self.sort_on
         listing.descending = self.descending
         listing.show(frame, keep_key=keep_key)
         self._set_status()
+
+    def _sorted(self, frame: pl.DataFrame) -> pl.DataFrame:
+        return frame.sort(
+            self.sort_on, descending=self.descending, nulls_last=True, maintain_order=True
+        )
 
     def _set_status(self, text: str | None = None) -> None:
         status = self.query_one("#status", Static)
@@ -371,6 +379,10 @@ class FoldsiftApp(App[int]):
 
     def _show_facts(self) -> None:
         row = self._current()
+        key = row["key"] if row else None
+        if key != self._facts_key:  # a new comparison starts at the top of its facts
+            self._facts_key = key
+            self.query_one("#facts").scroll_home(animate=False)
         sentence = self.query_one("#sentence", Static)
         if row is None:
             sentence.update(Text("No comparison matches the filter.", style="italic"))
@@ -434,21 +446,21 @@ class FoldsiftApp(App[int]):
                 for c, v in values.items()
             ]
         )
+        # The row stays where it is even if it no longer matches the filter or the sort: a
+        # row that vanished under the cursor would make the next key act on its neighbour.
+        # Editing the filter or sorting again applies them afresh.
         listing = self.query_one(ComparisonList)
-        if self.filter_text or self.sort_on in ("flagged", "decision", "note"):
-            self._apply_view(keep_key=key)
-        else:
-            listing.update_row(
-                listing.frame.with_columns(
-                    [
-                        pl.when(match)
-                        .then(pl.lit(v, dtype=self.base.schema[c]))
-                        .otherwise(pl.col(c))
-                        .alias(c)
-                        for c, v in values.items()
-                    ]
-                )
+        listing.update_row(
+            listing.frame.with_columns(
+                [
+                    pl.when(match)
+                    .then(pl.lit(v, dtype=self.base.schema[c]))
+                    .otherwise(pl.col(c))
+                    .alias(c)
+                    for c, v in values.items()
+                ]
             )
+        )
         self._set_status()
         self._show_facts()
 
@@ -491,7 +503,8 @@ class FoldsiftApp(App[int]):
             ):
                 self._changed(key)
 
-        self.push_screen(NoteScreen(title, row.get("note") or ""), done)
+        self._note_key, self._note_before = key, row.get("note") or ""
+        self.push_screen(NoteScreen(title, self._note_before), done)
 
     # -- robust cross-checks ----------------------------------------------------------------
     def action_robust(self) -> None:
@@ -624,12 +637,10 @@ class FoldsiftApp(App[int]):
         if rows == "shown":
             frame = self.query_one(ComparisonList).frame
         elif rows == "all":
-            frame = self.base
+            frame = self._sorted(self.base)
         else:
-            frame = self.base.filter(pl.col("flagged"))
-        frame = frame.drop("warning_count", "outcome_label", "change_size").join(
-            self.robust_frame(), on="key", how="left"
-        )
+            frame = self._sorted(self.base.filter(pl.col("flagged")))
+        frame = frame.drop(*DISPLAY_ONLY).join(self.robust_frame(), on="key", how="left")
         return frame.with_columns(sentence_column(frame))
 
     def _export(self, choice: ExportChoice, *, overwrite: bool) -> None:
@@ -656,7 +667,13 @@ class FoldsiftApp(App[int]):
         self.push_screen(TextScreen(about_text()))
 
     async def action_quit(self) -> None:
-        """Quit; the exit status is 2 when the data could not be opened (as for scan)."""
+        """Quit; the exit status is 2 when the data could not be opened (as for scan).
+
+        Quitting from the note editor keeps what was typed: nothing is lost on the way out."""
+        if isinstance(self.screen, NoteScreen) and self.store and self._note_key:
+            text = self.screen.text
+            if text != self._note_before:
+                self._save(lambda: self.store.set_note(self._note_key, text))
         code = 2 if self.error_text else 0
         self.exit(code, return_code=code)  # exit(2) alone sets the result, not the status
 
@@ -686,7 +703,8 @@ def help_text() -> str:
     ]
     lines = ["# foldsift keys", ""]
     lines += [f"- **{key}** — {does}" for key, does in keys]
-    lines += ["", "# Filter line", "", (filter_doc or "").split("\n\n", 1)[1]]
+    words = (filter_doc or "").split("Words, separated", 1)[-1]
+    lines += ["", "# Filter line", "", "Words, separated" + words]
     lines += ["", "# Equivalence classes", ""]
     lines += [f"- **{name}**: {text}" for name, text in BAND_CLASSES.items()]
     lines += ["", "# Warnings", ""]

@@ -72,8 +72,8 @@ def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = T
     method.add_argument(
         "--pairs",
         choices=PAIRS,
-        default="all",
-        help="all pairs of levels, or each level against a reference (default all)",
+        default=None,
+        help="all pairs of levels, or each level against a reference (default: all, or reference when --reference is given)",
     )
     method.add_argument(
         "--reference",
@@ -127,7 +127,8 @@ def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = T
 
 def settings_from(args: argparse.Namespace) -> ScanSettings:
     return ScanSettings(
-        pairs=args.pairs,
+        # Naming a reference level asks for comparisons against it.
+        pairs=args.pairs or ("reference" if args.reference else "all"),
         reference=tuple(args.reference),
         test=args.test,
         confidence=args.confidence,
@@ -265,8 +266,8 @@ def command_export(args: argparse.Namespace) -> int:
     }
     try:
         written = write_export(rows, args.out, settings, overwrite=args.overwrite)
-    except FileExistsError as error:
-        return _fail(f"{error}; add --overwrite to replace it")
+    except FileExistsError:
+        return _fail(f"{args.out} exists; add --overwrite to replace it")
     print(
         f"foldsift: wrote {rows.height} rows to {written} (settings in {written}.settings.json)",
         file=sys.stderr,

@@ -39,7 +39,9 @@ class NoteScreen(ModalScreen[str | None]):
         with Vertical(classes="dialog"):
             yield Label(self._title, classes="dialog-title")
             yield TextArea(self._text, id="note-text", soft_wrap=True)
-            yield Label("ctrl+s saves · escape cancels", classes="dialog-hint")
+            yield Label(
+                "ctrl+s saves · escape cancels · ctrl+q keeps the note and quits", classes="dialog-hint"
+            )
 
     def on_mount(self) -> None:
         self.query_one(TextArea).focus()
@@ -49,6 +51,10 @@ class NoteScreen(ModalScreen[str | None]):
 
     def action_cancel(self) -> None:
         self.dismiss(None)
+
+    @property
+    def text(self) -> str:
+        return self.query_one(TextArea).text
 
 
 @dataclass(frozen=True)

@@ -11,6 +11,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import polars as pl
+from rich.cells import cell_len, set_cell_size
 from rich.segment import Segment
 from textual import events
 from textual.binding import Binding
@@ -82,7 +83,7 @@ COLUMNS: tuple[Column, ...] = (
         lambda r: f"!{r['warning_count']}" if r.get("warning_count") else "",
         right=True,
     ),
-    Column("n b/a", 7, "n_a", lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
+    Column("n b/a", 7, "n_min", lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
     Column("grouping", 12, "grouping", lambda r: _grouping(r["grouping"])),
     # Sorted on the size of the change either way (|log ratio|), so 0.25× ranks beside 4×.
     Column("change", 7, "change_size", lambda r: _percent(r["percent_change"]), right=True),
@@ -93,9 +94,11 @@ SEPARATOR = " "
 
 
 def _cell(text: str, column: Column) -> str:
-    if len(text) > column.width:
-        text = text[: column.width - 1] + "…"
-    return text.rjust(column.width) if column.right else text.ljust(column.width)
+    """Fit text to the column by terminal cells (wide characters take two)."""
+    if cell_len(text) > column.width:
+        text = set_cell_size(text, column.width - 1) + "…"
+    padding = " " * (column.width - cell_len(text))
+    return padding + text if column.right else text + padding
 
 
 class ComparisonList(ScrollView, can_focus=True):

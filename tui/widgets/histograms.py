@@ -32,44 +32,74 @@ def back_to_back(
     height: int,
     title: str,
 ) -> Text:
-    """A chart with b above and a below the axis; GM marked with ┃ lines, medians with ┆."""
+    """Group b's histogram above group a's (drawn downwards) on shared bins, each as a
+    percentage of its own group so groups of different size compare; a solid line marks
+    each group's geometric mean, a dotted one its median."""
     values_a = np.asarray(values_a, dtype=float)
     values_b = np.asarray(values_b, dtype=float)
     if values_a.size + values_b.size == 0:
         return Text("no usable values to draw", style="italic")
     transform = np.log if log_scale else (lambda v: v)
-    data_a, data_b = transform(values_a), transform(values_b)
+    with np.errstate(all="ignore"):
+        data_a, data_b = transform(values_a), transform(values_b)
     both = np.concatenate([data_a, data_b])
     low, high = float(both.min()), float(both.max())
+    if not (math.isfinite(low) and math.isfinite(high)) or not math.isfinite(high - low):
+        return Text("values too large to draw on this scale", style="italic")
     if high <= low:
         high = low + 1.0
+    if max(abs(low), abs(high)) > 1e300:  # plotext's own arithmetic overflows near here
+        return Text("values too large to draw on this scale", style="italic")
+    try:
+        with np.errstate(all="ignore"):
+            return _draw(
+                data_a, data_b, values_a, values_b, low, high, log_scale, width, height, title
+            )
+    except (ValueError, OverflowError, ZeroDivisionError) as error:  # never end the session
+        plt.clear_figure()  # a failed build leaves plotext's global figure half made
+        return Text(f"chart unavailable: {error}", style="italic")
+
+
+def _draw(data_a, data_b, values_a, values_b, low, high, log_scale, width, height, title) -> Text:
+    transform = np.log if log_scale else (lambda v: v)
     bins = int(max(6, min(24, (width - 10) // 3)))
     edges = np.linspace(low, high, bins + 1)
     counts_a, _ = np.histogram(data_a, edges)
     counts_b, _ = np.histogram(data_b, edges)
-    centres = (edges[:-1] + edges[1:]) / 2
-    plt.clf()
-    plt.theme("clear")
-    plt.plotsize(max(width, 20), max(height, 6))
-    plt.bar(list(centres), list(counts_b), color=COLOR_B, width=0.8)
-    plt.bar(list(centres), list(-counts_a), color=COLOR_A, width=0.8)
-    plt.hline(0, "gray")
-    for values, color in ((values_a, COLOR_A), (values_b, COLOR_B)):
-        if values.size:
-            plt.vline(float(transform(_geometric_mean(values))), color)
-            plt.vline(float(transform(np.median(values))), color + "+")
+    share_a = 100 * counts_a / max(values_a.size, 1)
+    share_b = 100 * counts_b / max(values_b.size, 1)
+    tallest = max(float(share_a.max(initial=0)), float(share_b.max(initial=0)), 1.0)
+    centres = list((edges[:-1] + edges[1:]) / 2)
     raw_ticks = (
         _nice_ticks(math.exp(low), math.exp(high), log_scale)
         if log_scale
         else _nice_ticks(low, high, False)
     )
     positions = [math.log(v) if log_scale else v for v in raw_ticks]
-    plt.xticks(positions, [_tick(v) for v in raw_ticks])
-    # One count scale for both groups, so bar heights compare directly.
-    tallest = max(int(counts_a.max(initial=1)), int(counts_b.max(initial=1)), 1)
-    plt.ylim(-tallest, tallest)
-    plt.yticks([-tallest, 0, tallest], [str(tallest), "0", str(tallest)])
-    plt.title(title)
+    plt.clf()
+    plt.theme("clear")
+    plt.plotsize(max(width, 20), max(height, 8))
+    plt.subplots(2, 1)
+    # Each group in its own panel: the two baselines are alike, so neither group's bars
+    # get an extra row.
+    for panel, shares, values, color, sign in (
+        (1, share_b, values_b, COLOR_B, 1),
+        (2, share_a, values_a, COLOR_A, -1),
+    ):
+        plt.subplot(panel, 1)
+        plt.bar(centres, list(sign * shares), color=color, width=0.8)
+        plt.xlim(float(edges[0]), float(edges[-1]))
+        plt.ylim(*sorted((0.0, sign * tallest)))
+        ticks = sorted((0.0, sign * tallest))
+        plt.yticks(ticks, [f"{abs(t):.0f}%" if t else "0" for t in ticks])
+        if values.size:
+            plt.vline(float(transform(_geometric_mean(values))), color)
+            plt.vline(float(transform(np.median(values))), color + "+")
+        if panel == 1:
+            plt.title(title)
+            plt.xticks([])
+        else:
+            plt.xticks(positions, [_tick(v) for v in raw_ticks])
     return Text.from_ansi(plt.build())
 
 
@@ -82,7 +112,7 @@ def _nice_ticks(low: float, high: float, log_scale: bool, most: int = 5) -> list
         for exponent in range(math.floor(math.log10(low)), math.ceil(math.log10(high)) + 1):
             for mantissa in (1, 2, 5):
                 value = mantissa * 10.0**exponent
-                if low <= value <= high:
+                if math.isfinite(value) and low <= value <= high:
                     ticks.append(value)
         if len(ticks) > most:
             ticks = [v for v in ticks if math.isclose(math.log10(v) % 1, 0, abs_tol=1e-9)] or ticks
