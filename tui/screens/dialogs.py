@@ -40,7 +40,8 @@ class NoteScreen(ModalScreen[str | None]):
             yield Label(self._title, classes="dialog-title")
             yield TextArea(self._text, id="note-text", soft_wrap=True)
             yield Label(
-                "ctrl+s saves · escape cancels · ctrl+q keeps the note and quits", classes="dialog-hint"
+                "ctrl+s saves · escape cancels · ctrl+q keeps the note and quits",
+                classes="dialog-hint",
             )
 
     def on_mount(self) -> None:

@@ -32,9 +32,9 @@ def back_to_back(
     height: int,
     title: str,
 ) -> Text:
-    """Group b's histogram above group a's (drawn downwards) on shared bins, each as a
-    percentage of its own group so groups of different size compare; a solid line marks
-    each group's geometric mean, a dotted one its median."""
+    """Group b's histogram above the axis and group a's below it, on shared bins, each as a
+    percentage of its own group so groups of different size compare; a line in each group's
+    colour marks its geometric mean, a dotted one its median."""
     values_a = np.asarray(values_a, dtype=float)
     values_b = np.asarray(values_b, dtype=float)
     if values_a.size + values_b.size == 0:
@@ -56,7 +56,7 @@ def back_to_back(
                 data_a, data_b, values_a, values_b, low, high, log_scale, width, height, title
             )
     except (ValueError, OverflowError, ZeroDivisionError) as error:  # never end the session
-        plt.clear_figure()  # a failed build leaves plotext's global figure half made
+        plt.clf()  # a failed build leaves plotext's figure half made
         return Text(f"chart unavailable: {error}", style="italic")
 
 
@@ -70,36 +70,28 @@ def _draw(data_a, data_b, values_a, values_b, low, high, log_scale, width, heigh
     share_b = 100 * counts_b / max(values_b.size, 1)
     tallest = max(float(share_a.max(initial=0)), float(share_b.max(initial=0)), 1.0)
     centres = list((edges[:-1] + edges[1:]) / 2)
+    plt.clf()
+    plt.theme("clear")
+    plt.plotsize(max(width, 20), max(height, 6))
+    plt.bar(centres, list(share_b), color=COLOR_B, width=0.8)
+    plt.bar(centres, list(-share_a), color=COLOR_A, width=0.8)
+    plt.hline(0, "gray")
+    for values, color in ((values_a, COLOR_A), (values_b, COLOR_B)):
+        if values.size:
+            plt.vline(float(transform(_geometric_mean(values))), color)
+            plt.vline(float(transform(np.median(values))), color + "+")
     raw_ticks = (
         _nice_ticks(math.exp(low), math.exp(high), log_scale)
         if log_scale
         else _nice_ticks(low, high, False)
     )
     positions = [math.log(v) if log_scale else v for v in raw_ticks]
-    plt.clf()
-    plt.theme("clear")
-    plt.plotsize(max(width, 20), max(height, 8))
-    plt.subplots(2, 1)
-    # Each group in its own panel: the two baselines are alike, so neither group's bars
-    # get an extra row.
-    for panel, shares, values, color, sign in (
-        (1, share_b, values_b, COLOR_B, 1),
-        (2, share_a, values_a, COLOR_A, -1),
-    ):
-        plt.subplot(panel, 1)
-        plt.bar(centres, list(sign * shares), color=color, width=0.8)
-        plt.xlim(float(edges[0]), float(edges[-1]))
-        plt.ylim(*sorted((0.0, sign * tallest)))
-        ticks = sorted((0.0, sign * tallest))
-        plt.yticks(ticks, [f"{abs(t):.0f}%" if t else "0" for t in ticks])
-        if values.size:
-            plt.vline(float(transform(_geometric_mean(values))), color)
-            plt.vline(float(transform(np.median(values))), color + "+")
-        if panel == 1:
-            plt.title(title)
-            plt.xticks([])
-        else:
-            plt.xticks(positions, [_tick(v) for v in raw_ticks])
+    plt.xticks(positions, [_tick(v) for v in raw_ticks])
+    # Each group as a percentage of itself, on one scale: groups of different size compare.
+    plt.ylim(-tallest, tallest)
+    label = f"{tallest:.0f}%"
+    plt.yticks([-tallest, 0, tallest], [label, "0", label])
+    plt.title(title)
     return Text.from_ansi(plt.build())
 
 
