@@ -196,7 +196,7 @@ async def test_reverse_keeps_the_cursor_on_its_comparison(tmp_path: Path) -> Non
         assert_sentence_follows(app)
 
 
-@pytest.mark.parametrize("sort_on", ["flagged", "outcome", "grouping", "n_a", "ratio", "p_value"])
+@pytest.mark.parametrize("sort_on", ["flagged", "outcome", "grouping", "n_min", "ratio", "p_value"])
 async def test_clicking_a_header_sorts_and_clicking_again_reverses(
     tmp_path: Path, sort_on: str
 ) -> None:
