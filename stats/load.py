@@ -61,9 +61,6 @@ class Table:
     def name(self) -> str:
         return self.path.name if self.path is not None else "<table>"
 
-    def censored_column(self, outcome: str) -> str:
-        return outcome + CENSORED_SUFFIX
-
 
 def file_fingerprint(path: Path) -> str:
     digest = hashlib.sha256()

@@ -80,11 +80,6 @@ class ScanSettings:
         return data
 
 
-def comparison_key(grouping: str, outcome: str, level_a: str, level_b: str) -> str:
-    """The stable key that reviews are stored under."""
-    return KEY_SEPARATOR.join((grouping, outcome, level_a, level_b))
-
-
 def _reference_for(grouping: str, levels: list[str], references: tuple[str, ...]) -> str:
     for item in references:
         if "=" in item:
