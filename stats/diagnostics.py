@@ -8,10 +8,15 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import numpy.typing as npt
 import polars as pl
 from scipy import stats as sps
 
-from .policy import USED
+from .columns import P_VALUE, side
+from .values import GroupValues
+from .vocabulary import WARNING_NAMES, WarningName
+
+Array = npt.NDArray[np.float64]
 
 SMALL_N = 5
 CENSORED_SHARE = 0.15
@@ -25,7 +30,7 @@ SPREAD_ALPHA = 0.05
 MEDIAN_GM_Z = 1.96
 
 #: Warning name -> one-line explanation, in the order they are listed.
-WARNINGS: dict[str, str] = {
+WARNINGS: dict[WarningName, str] = {
     "too-few": "a group has fewer than 2 usable values: no test is possible",
     "no-spread": "all values are equal in both groups: the t-test is undefined",
     "small-n": f"a group has fewer than {SMALL_N} usable values: checks have little power",
@@ -55,64 +60,54 @@ WARNINGS: dict[str, str] = {
 }
 
 #: Warnings that make "ratio of medians" doubtful: the finding then speaks of geometric means.
-SYMMETRY_WARNINGS = ("log-skew", "log-not-normal", "median-vs-gm", "spread-differs")
+SYMMETRY_WARNINGS: tuple[WarningName, ...] = ("log-skew", "log-not-normal", "median-vs-gm", "spread-differs")
 
 
-def group_normality(
-    frame: pl.DataFrame, groupings: tuple[str, ...], outcomes: tuple[str, ...]
-) -> pl.DataFrame:
-    """Shapiro–Wilk W and p on the logs of each grouping × level × outcome (n 3..5000).
+def group_normality(values: GroupValues) -> pl.DataFrame:
+    """Shapiro–Wilk W and p on the logs of each group (n 3..5000), one row per group.
 
     One call per group, not per comparison. Outside the range, or with no spread, the
     result is NaN."""
-    rows: dict[str, list] = {
-        "grouping": [],
-        "level": [],
-        "outcome": [],
-        "shapiro_w": [],
-        "shapiro_p": [],
-    }
-    used_columns = [outcome + USED for outcome in outcomes]
-    for grouping in groupings:
-        parts = frame.select(grouping, *used_columns).partition_by(grouping, as_dict=True)
-        for (level,), part in parts.items():
-            if level is None:
-                continue
-            for outcome in outcomes:
-                values = part[outcome + USED].drop_nulls().to_numpy()
-                w = p = math.nan
-                if SHAPIRO_RANGE[0] <= values.size <= SHAPIRO_RANGE[1]:
-                    logs = np.log(values)
-                    if np.ptp(logs) > 0:
-                        w, p = (float(x) for x in sps.shapiro(logs))
-                rows["grouping"].append(grouping)
-                rows["level"].append(str(level))
-                rows["outcome"].append(outcome)
-                rows["shapiro_w"].append(w)
-                rows["shapiro_p"].append(p)
+    rows: list[tuple[str, str | None, str | None, str, str, float, float]] = []
+    for group, group_values in values.groups():
+        w = p = math.nan
+        if SHAPIRO_RANGE[0] <= group_values.size <= SHAPIRO_RANGE[1]:
+            logs = np.log(group_values)
+            if np.ptp(logs) > 0:
+                w, p = (float(x) for x in sps.shapiro(logs))
+        rows.append((*group, w, p))
     return pl.DataFrame(
         rows,
         schema={
             "grouping": pl.Utf8,
+            "within": pl.Utf8,
+            "stratum": pl.Utf8,
             "level": pl.Utf8,
             "outcome": pl.Utf8,
             "shapiro_w": pl.Float64,
             "shapiro_p": pl.Float64,
         },
+        orient="row",
     )
 
 
-def spread_test(sd_a: np.ndarray, n_a: np.ndarray, sd_b: np.ndarray, n_b: np.ndarray) -> np.ndarray:
+def spread_test(sd_a: Array, n_a: Array, sd_b: Array, n_b: Array) -> Array:
     """Two-sided F-test p for equal log-scale variances."""
     with np.errstate(divide="ignore", invalid="ignore"):
         f = (sd_b / sd_a) ** 2
         one_side = sps.f.cdf(f, n_b - 1, n_a - 1)
-        return np.minimum(1.0, 2 * np.minimum(one_side, 1 - one_side))
+        p: Array = np.minimum(1.0, 2 * np.minimum(one_side, 1 - one_side))
+        return p
 
 
 def median_gm_z(
-    log_median_ratio: np.ndarray, difference: np.ndarray, sd_a, n_a, sd_b, n_b
-) -> np.ndarray:
+    log_median_ratio: Array,
+    difference: Array,
+    sd_a: Array,
+    n_a: Array,
+    sd_b: Array,
+    n_b: Array,
+) -> Array:
     """z for log(median ratio) - log(GM ratio) under log-normality.
 
     For normal data the sample median minus the mean has asymptotic variance
@@ -120,31 +115,34 @@ def median_gm_z(
     being efficient; Kendall & Stuart, Advanced Theory of Statistics, vol. 1, sec. 10.10)."""
     with np.errstate(divide="ignore", invalid="ignore"):
         se = np.sqrt((math.pi / 2 - 1) * (sd_a**2 / n_a + sd_b**2 / n_b))
-        return (log_median_ratio - difference) / se
+        z: Array = (log_median_ratio - difference) / se
+        return z
 
 
 def warning_expression() -> pl.Expr:
-    """Expects NaN already replaced by null (polars orders NaN above every number).
-
-    A polars expression joining the names of the warnings that apply into one string."""
+    """The list of the names of the warnings that apply, as one polars expression over the
+    comparisons frame. Expects NaN already replaced by null (polars orders NaN above every
+    number)."""
 
     def either(name: str) -> tuple[pl.Expr, pl.Expr]:
-        return pl.col(name + "_a"), pl.col(name + "_b")
+        return pl.col(side(name, "a")), pl.col(side(name, "b"))
 
     n_a, n_b = either("n")
-    total_a = n_a + pl.col("n_excluded_a")
-    total_b = n_b + pl.col("n_excluded_b")
+    excluded_a, excluded_b = either("n_excluded")
+    censored_a, censored_b = either("censored_share")
+    sd_a, sd_b = either("sd_log")
+    total_a = n_a + excluded_a
+    total_b = n_b + excluded_b
     skew_a, skew_b = either("skew_log")
     shapiro_a, shapiro_b = either("shapiro_p")
-    sd_ratio = pl.max_horizontal("sd_log_a", "sd_log_b") / pl.min_horizontal("sd_log_a", "sd_log_b")
-    conditions = {
+    sd_ratio = pl.max_horizontal(sd_a, sd_b) / pl.min_horizontal(sd_a, sd_b)
+    conditions: dict[WarningName, pl.Expr] = {
         "too-few": (n_a < 2) | (n_b < 2),
-        "no-spread": (n_a >= 2) & (n_b >= 2) & pl.col("p_value").is_null(),
+        "no-spread": (n_a >= 2) & (n_b >= 2) & pl.col(P_VALUE).is_null(),
         "small-n": (n_a < SMALL_N) | (n_b < SMALL_N),
-        "censored-share": (pl.col("censored_share_a") > CENSORED_SHARE)
-        | (pl.col("censored_share_b") > CENSORED_SHARE),
-        "excluded-share": (pl.col("n_excluded_a") > EXCLUDED_SHARE * total_a)
-        | (pl.col("n_excluded_b") > EXCLUDED_SHARE * total_b),
+        "censored-share": (censored_a > CENSORED_SHARE) | (censored_b > CENSORED_SHARE),
+        "excluded-share": (excluded_a > EXCLUDED_SHARE * total_a)
+        | (excluded_b > EXCLUDED_SHARE * total_b),
         "log-skew": ((skew_a.abs() > LOG_SKEW) & (n_a >= LOG_SKEW_MIN_N))
         | ((skew_b.abs() > LOG_SKEW) & (n_b >= LOG_SKEW_MIN_N)),
         "log-not-normal": (shapiro_a < SHAPIRO_ALPHA) | (shapiro_b < SHAPIRO_ALPHA),
@@ -152,12 +150,11 @@ def warning_expression() -> pl.Expr:
         "median-vs-gm": pl.col("median_gm_z").abs() > MEDIAN_GM_Z,
     }
     parts = [
-        pl.when(condition.fill_null(False)).then(pl.lit(name))
-        for name, condition in conditions.items()
+        pl.when(condition.fill_null(False)).then(pl.lit(name)) for name, condition in conditions.items()
     ]
-    return pl.concat_str(parts, separator=";", ignore_nulls=True).fill_null("")
+    return pl.concat_list(parts).list.drop_nulls().cast(pl.List(pl.Enum(list(WARNING_NAMES))))
 
 
-def explain(warnings: str) -> list[tuple[str, str]]:
-    """(name, one-line explanation) for each warning in a ``;``-joined list."""
-    return [(name, WARNINGS.get(name, "")) for name in warnings.split(";") if name]
+def explain(warnings: list[WarningName]) -> list[tuple[WarningName, str]]:
+    """(name, one-line explanation) for each warning of a comparison."""
+    return [(name, WARNINGS[name]) for name in warnings]

@@ -12,10 +12,12 @@ import math
 import numpy as np
 from scipy import stats as sps
 
+from .vocabulary import BandClass
+
 DEFAULT_BAND = (0.80, 1.25)
 
 #: Class names, in the order the app lists them, each with its plain meaning.
-BAND_CLASSES = {
+BAND_CLASSES: dict[BandClass, str] = {
     "different": "the CI excludes 1 and reaches outside the band: a difference that may matter",
     "minor-difference": "the CI excludes 1 but the 90% CI lies inside the band: real but small",
     "equivalent": "the 90% CI lies inside the band and the CI includes 1: equivalent",

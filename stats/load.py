@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import re
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -24,11 +25,49 @@ MAX_INTEGER_GROUP_LEVELS = 6
 #: Share of non-missing entries that must parse as numbers for an outcome column.
 NUMERIC_SHARE = 0.8
 
-CENSORED_SUFFIX = "__censored"
-
-
 class InputError(ValueError):
     """Bad input: the message is one line that names the file or column and what to do."""
+
+
+@dataclass(frozen=True)
+class DerivedNames:
+    """Names of the working columns derived from user columns (a censored flag, the value
+    used on the log scale, ...), chosen so that no user column can collide with them.
+
+    Each is ``<user column><marker><role>`` where the marker is a run of ASCII unit
+    separators that occurs in no user column name: the first marker in a derived name then
+    ends the user's part, so two derived names are equal only for the same column and role,
+    and no user name (which holds no marker) equals a derived one."""
+
+    marker: str = "\x1f"
+
+    @classmethod
+    def beside(cls, user_columns: Iterable[str]) -> DerivedNames:
+        names = list(user_columns)
+        marker = "\x1f"
+        while any(marker in name for name in names):
+            marker += "\x1f"
+        return cls(marker)
+
+    def derived(self, column: str, role: str) -> str:
+        return f"{column}{self.marker}{role}"
+
+    def censored(self, column: str) -> str:
+        """True where the entry was written below a limit (``<0.5``)."""
+        return self.derived(column, "censored")
+
+    def used(self, column: str) -> str:
+        """The strictly positive value that goes to the log scale (null if none)."""
+        return self.derived(column, "used")
+
+    def excluded(self, column: str) -> str:
+        return self.derived(column, "excluded")
+
+    def substituted(self, column: str) -> str:
+        return self.derived(column, "substituted")
+
+    def log(self, column: str) -> str:
+        return self.derived(column, "log")
 
 
 @dataclass(frozen=True)
@@ -38,7 +77,8 @@ class Table:
     Attributes
     ----------
     frame:
-        Grouping columns as Utf8; each outcome as Float64 plus ``<name>__censored``.
+        Grouping columns as Utf8; each outcome as Float64 plus its censored flag
+        (``names.censored(outcome)``).
     groupings, outcomes:
         Column names in file order.
     path:
@@ -48,6 +88,8 @@ class Table:
     unparsed:
         Per outcome, the count of entries that were neither numbers, censored
         entries nor missing markers and were therefore read as missing.
+    names:
+        The names of the working columns derived from the user's columns.
     """
 
     frame: pl.DataFrame
@@ -56,6 +98,7 @@ class Table:
     path: Path | None
     fingerprint: str
     unparsed: dict[str, int] = field(default_factory=dict)
+    names: DerivedNames = field(default_factory=DerivedNames)
 
     @property
     def name(self) -> str:
@@ -265,89 +308,89 @@ def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
     return groupings, outcomes
 
 
-def load_table(
-    path: Path | str | None = None,
-    *,
-    frame: pl.DataFrame | None = None,
-    groupings: list[str] | tuple[str, ...] | None = None,
-    outcomes: list[str] | tuple[str, ...] | None = None,
-) -> Table:
-    """Load a file (or an in-memory raw frame) and resolve column roles.
+def _read(path: Path | str | None, frame: pl.DataFrame | None) -> tuple[pl.DataFrame, Path | None, str]:
+    """The raw frame, its path and its fingerprint, from a file or an in-memory frame."""
+    if frame is not None:
+        return frame, (Path(path) if path is not None else None), frame_fingerprint(frame)
+    if path is None:
+        raise ValueError("give a path or a frame")
+    path = Path(path)
+    raw = read_raw(path)
+    return raw, path, file_fingerprint(path)
 
-    Named ``groupings``/``outcomes`` override the guesses; a named column that does not
-    exist raises :class:`InputError`.
-    """
-    if frame is None:
-        if path is None:
-            raise ValueError("give a path or a frame")
-        path = Path(path)
-        raw = read_raw(path)
-        fingerprint = file_fingerprint(path)
-    else:
-        raw = frame
-        fingerprint = frame_fingerprint(frame)
-        path = Path(path) if path is not None else None
-    label = str(path) if path is not None else "table"
-    if raw.height == 0:
-        raise InputError(f"{label}: has a header but no data rows; nothing to compare")
-    for role, names in (("grouping", groupings), ("outcome", outcomes)):
-        for name in names or ():
-            if name not in raw.columns:
-                shown = ", ".join(raw.columns[:12]) + (" …" if raw.width > 12 else "")
-                raise InputError(
-                    f"{label}: no column named {name!r} (asked for as {role}); columns are: {shown}"
-                )
+
+def _check_named(raw: pl.DataFrame, label: str, role: str, names: Sequence[str]) -> None:
+    for name in names:
+        if name not in raw.columns:
+            shown = ", ".join(raw.columns[:12]) + (" …" if raw.width > 12 else "")
+            raise InputError(
+                f"{label}: no column named {name!r} (asked for as {role}); columns are: {shown}"
+            )
+
+
+def _choose_roles(
+    raw: pl.DataFrame, groupings: Sequence[str], outcomes: Sequence[str], label: str
+) -> tuple[list[str], list[str]]:
+    """Grouping and outcome columns: the named ones, the rest guessed."""
     if groupings and outcomes:
-        guessed_groups, guessed_outcomes = list(groupings), list(outcomes)
-    else:
-        guessed_groups, guessed_outcomes = infer_roles(raw)
-    if groupings:
-        chosen_groups = list(groupings)
-    else:
-        chosen_groups = [name for name in guessed_groups if name not in (outcomes or ())]
+        return list(groupings), list(outcomes)
+    guessed_groups, guessed_outcomes = infer_roles(raw)
+    chosen_groups = list(groupings) or [n for n in guessed_groups if n not in outcomes]
     if outcomes:
-        chosen_outcomes = list(outcomes)
-    else:
-        chosen_outcomes = [name for name in guessed_outcomes if name not in chosen_groups]
-        if groupings:
-            # The user named the groupings: few-level integer columns are measurements too.
-            chosen_outcomes += [
-                name
-                for name in guessed_groups
-                if name not in chosen_groups and _is_numeric_column(raw, name)
-            ]
-            chosen_outcomes.sort(key=raw.columns.index)
-    overlap = set(chosen_groups) & set(chosen_outcomes)
+        return chosen_groups, list(outcomes)
+    chosen_outcomes = [name for name in guessed_outcomes if name not in chosen_groups]
+    if groupings:
+        # The user named the groupings: few-level integer columns are measurements too.
+        chosen_outcomes += [
+            name
+            for name in guessed_groups
+            if name not in chosen_groups and _is_numeric_column(raw, name)
+        ]
+        chosen_outcomes.sort(key=raw.columns.index)
+    return chosen_groups, chosen_outcomes
+
+
+def _check_roles(groupings: list[str], outcomes: list[str], label: str) -> None:
+    overlap = set(groupings) & set(outcomes)
     if overlap:
         raise InputError(
             f"{label}: column {sorted(overlap)[0]!r} cannot be both grouping and outcome"
         )
-    if not chosen_outcomes:
+    if not outcomes:
         raise InputError(
             f"{label}: no numeric outcome columns found; name them with --outcome COLUMN"
         )
-    if not chosen_groups:
+    if not groupings:
         raise InputError(
             f"{label}: no grouping column found (text or few-level columns); "
             "name one with --group COLUMN"
         )
-    columns: list[pl.Expr] = []
-    for name in chosen_groups:
-        columns.append(pl.col(name).cast(pl.Utf8).str.strip_chars().alias(name))
+
+
+def _typed(
+    raw: pl.DataFrame, groupings: list[str], outcomes: list[str], names: DerivedNames
+) -> tuple[pl.DataFrame, dict[str, int]]:
+    """Groupings as text; each outcome as Float64 plus its censored flag; unparsed counts."""
+    columns: list[pl.Expr] = [
+        pl.col(name).cast(pl.Utf8).str.strip_chars().alias(name) for name in groupings
+    ]
     unparsed_exprs = []
-    for name in chosen_outcomes:
+    for name in outcomes:
         if raw.schema[name].is_numeric():
             value = pl.col(name).cast(pl.Float64)
             columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
-            columns.append(pl.lit(False).alias(name + CENSORED_SUFFIX))
+            columns.append(pl.lit(False).alias(names.censored(name)))
             continue
         value, censored, unparsed = _parse_outcome(pl.col(name))
         columns.append(value.alias(name))
-        columns.append(censored.fill_null(False).alias(name + CENSORED_SUFFIX))
+        columns.append(censored.fill_null(False).alias(names.censored(name)))
         unparsed_exprs.append(unparsed.sum().alias(name))
-    typed = raw.select(columns)
-    unparsed_counts = raw.select(unparsed_exprs).row(0, named=True) if unparsed_exprs else {}
-    for name in chosen_outcomes:
+    counts = raw.select(unparsed_exprs).row(0, named=True) if unparsed_exprs else {}
+    return raw.select(columns), {k: int(v) for k, v in counts.items() if v}
+
+
+def _check_values(typed: pl.DataFrame, groupings: list[str], outcomes: list[str], label: str) -> None:
+    for name in outcomes:
         if typed[name].is_null().all():
             raise InputError(
                 f"{label}: outcome column {name!r} has no numeric values; "
@@ -358,7 +401,7 @@ def load_table(
                 f"{label}: outcome column {name!r} has no positive values, so logs are undefined; "
                 "leave it out"
             )
-    for name in chosen_groups:
+    for name in groupings:
         distinct = typed[name].drop_nulls().n_unique()
         if distinct >= 2 and distinct == typed[name].drop_nulls().len() and typed.height > 2:
             raise InputError(
@@ -370,11 +413,37 @@ def load_table(
                 f"{label}: grouping column {name!r} has a single level; "
                 "choose a column with two or more levels"
             )
+
+
+def load_table(
+    path: Path | str | None = None,
+    *,
+    frame: pl.DataFrame | None = None,
+    groupings: Sequence[str] | None = None,
+    outcomes: Sequence[str] | None = None,
+) -> Table:
+    """Load a file (or an in-memory raw frame) and resolve column roles.
+
+    Named ``groupings``/``outcomes`` override the guesses; a named column that does not
+    exist raises :class:`InputError`.
+    """
+    raw, source, fingerprint = _read(path, frame)
+    label = str(source) if source is not None else "table"
+    if raw.height == 0:
+        raise InputError(f"{label}: has a header but no data rows; nothing to compare")
+    _check_named(raw, label, "grouping", groupings or ())
+    _check_named(raw, label, "outcome", outcomes or ())
+    chosen_groups, chosen_outcomes = _choose_roles(raw, groupings or (), outcomes or (), label)
+    _check_roles(chosen_groups, chosen_outcomes, label)
+    names = DerivedNames.beside(raw.columns)
+    typed, unparsed = _typed(raw, chosen_groups, chosen_outcomes, names)
+    _check_values(typed, chosen_groups, chosen_outcomes, label)
     return Table(
         frame=typed,
         groupings=tuple(chosen_groups),
         outcomes=tuple(chosen_outcomes),
-        path=path,
+        path=source,
         fingerprint=fingerprint,
-        unparsed={k: int(v) for k, v in unparsed_counts.items() if v},
+        unparsed=unparsed,
+        names=names,
     )

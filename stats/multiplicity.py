@@ -10,7 +10,10 @@ from __future__ import annotations
 import numpy as np
 import polars as pl
 
-FAMILIES = ("scan", "outcome", "grouping")
+from .vocabulary import FAMILIES
+
+__all__ = ["FAMILIES", "adjust"]
+
 
 
 def adjust(p_values: np.ndarray, family: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:

@@ -11,37 +11,29 @@ from dataclasses import dataclass
 
 import polars as pl
 
-from .load import CENSORED_SUFFIX
+from .load import DerivedNames
+from .vocabulary import (
+    CENSORED_POLICIES,
+    NONPOSITIVE_POLICIES,
+    CensoredPolicy,
+    NonpositivePolicy,
+    choose,
+)
 
-#: Zero or negative values: leave them out (counted), or put half the smallest positive
-#: value of the same outcome in their place (counted as substituted).
-NONPOSITIVE_POLICIES = ("exclude", "half-min")
-#: Entries like ``<0.5``: leave them out (counted), or put DL/2 or DL/sqrt(2) in their place.
-CENSORED_POLICIES = ("exclude", "half-dl", "dl-root2")
-
-USED = "__used"
-EXCLUDED = "__excluded"
-SUBSTITUTED = "__substituted"
+__all__ = ["CENSORED_POLICIES", "NONPOSITIVE_POLICIES", "ValuePolicy", "apply_policy"]
 
 
 @dataclass(frozen=True)
 class ValuePolicy:
     """How non-positive and censored entries reach the log scale."""
 
-    nonpositive: str = "exclude"
-    censored: str = "exclude"
+    nonpositive: NonpositivePolicy = "exclude"
+    censored: CensoredPolicy = "exclude"
 
     def __post_init__(self) -> None:
-        if self.nonpositive not in NONPOSITIVE_POLICIES:
-            raise ValueError(
-                f"unknown non-positive policy {self.nonpositive!r}; "
-                f"choose one of {', '.join(NONPOSITIVE_POLICIES)}"
-            )
-        if self.censored not in CENSORED_POLICIES:
-            raise ValueError(
-                f"unknown censored policy {self.censored!r}; "
-                f"choose one of {', '.join(CENSORED_POLICIES)}"
-            )
+        # Literal types are checked by mypy; this catches values built at run time.
+        choose(self.nonpositive, NONPOSITIVE_POLICIES, "non-positive policy")
+        choose(self.censored, CENSORED_POLICIES, "censored policy")
 
     def describe(self) -> str:
         words = {
@@ -57,18 +49,19 @@ class ValuePolicy:
 
 
 def apply_policy(
-    frame: pl.DataFrame, outcomes: tuple[str, ...], policy: ValuePolicy
+    frame: pl.DataFrame, outcomes: tuple[str, ...], policy: ValuePolicy, names: DerivedNames
 ) -> pl.DataFrame:
-    """Add ``<o>__used``, ``<o>__excluded`` and ``<o>__substituted`` for each outcome.
+    """Add the used value, an excluded flag and a substituted flag for each outcome
+    (``names.used``, ``names.excluded``, ``names.substituted``).
 
-    ``__used`` is the strictly positive value that goes to the log scale (null when the
+    The used value is the strictly positive value that goes to the log scale (null when the
     entry is missing or left out). Missing entries count as neither excluded nor
     substituted.
     """
     exprs: list[pl.Expr] = []
     for name in outcomes:
         value = pl.col(name)
-        censored = pl.col(name + CENSORED_SUFFIX)
+        censored = pl.col(names.censored(name))
         plain = value.is_not_null() & ~censored
         nonpositive = plain & (value <= 0)
         smallest_positive = value.filter(plain & (value > 0)).min()
@@ -99,8 +92,8 @@ def apply_policy(
             nonpositive & (policy.nonpositive != "exclude")
         )
         exprs += [
-            used.alias(name + USED),
-            excluded.fill_null(False).alias(name + EXCLUDED),
-            substituted.fill_null(False).alias(name + SUBSTITUTED),
+            used.alias(names.used(name)),
+            excluded.fill_null(False).alias(names.excluded(name)),
+            substituted.fill_null(False).alias(names.substituted(name)),
         ]
     return frame.with_columns(exprs)

@@ -11,6 +11,8 @@ approximation replaces that with delta = (z_{1-alpha/2} + z_{power}) * s * sqrt(
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 from scipy import stats as sps
 
@@ -25,10 +27,12 @@ def _power(
     # Lower tail P(T' < -c; ncp) as P(T' > c; -ncp) (T'(ncp) and -T'(-ncp) have one law):
     # scipy's nct.cdf returns NaN far in that tail (e.g. df 98, ncp 10), which broke the
     # bisection; nct.sf does not.
-    return sps.nct.sf(critical, df, ncp) + sps.nct.sf(critical, df, -ncp)
+    power: np.ndarray = sps.nct.sf(critical, df, ncp) + sps.nct.sf(critical, df, -ncp)
+    return power
 
 
-def _bisect(function, low: np.ndarray, high: np.ndarray, iterations: int = 80) -> np.ndarray:
+def _bisect(
+    function: Callable[[np.ndarray], np.ndarray], low: np.ndarray, high: np.ndarray, iterations: int = 80) -> np.ndarray:
     """Vectorised bisection for an increasing function crossing zero in [low, high]."""
     low = low.astype(float).copy()
     high = high.astype(float).copy()
@@ -37,7 +41,8 @@ def _bisect(function, low: np.ndarray, high: np.ndarray, iterations: int = 80) -
         above = function(middle) > 0
         high = np.where(above, middle, high)
         low = np.where(above, low, middle)
-    return (low + high) / 2
+    root: np.ndarray = (low + high) / 2
+    return root
 
 
 def detectable_ratio(
@@ -60,7 +65,8 @@ def detectable_ratio(
     if method == "normal":
         delta = (sps.norm.ppf(1 - alpha / 2) + sps.norm.ppf(power)) * scale
         with np.errstate(over="ignore"):
-            return np.exp(delta)
+            ratio: np.ndarray = np.exp(delta)
+            return ratio
     if method != "t":
         raise ValueError("method must be 't' or 'normal'")
     df = np.where(valid, n_a + n_b - 2, 2.0)

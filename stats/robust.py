@@ -10,26 +10,38 @@ Hodges–Lehmann: the median of all pairwise differences log(y_j) - log(x_i); CI
 order statistics of those differences at the normal-approximation critical value of the
 Mann–Whitney statistic (Hollander, Wolfe & Chicken, Nonparametric Statistical Methods,
 3rd ed., sec. 4.3).
+
+``CrossChecker`` is the one place that runs cross-checks for many comparisons: it draws
+each group's bootstrap medians once, from a generator seeded by the group's identity.
 """
 
 from __future__ import annotations
 
 import functools
+import hashlib
 import math
-from collections.abc import Callable
+import threading
+from collections.abc import Callable, Collection, Mapping, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
+import numpy.typing as npt
 import polars as pl
 from scipy import stats as sps
 from scipy.special import gammaln
 
-from .policy import USED
+from .columns import CROSS_CHECK_SCHEMA, ComparisonRow, Side, comparison_row
+from .values import GroupId
+
+if TYPE_CHECKING:
+    from .scan import ScanResult
 
 DEFAULT_RESAMPLES = 2000
 DEFAULT_SEED = 20261201
 _BRUTE_FORCE_PAIRS = 4_000_000
 
+FloatArray = npt.NDArray[np.float64]
 
 @dataclass(frozen=True)
 class RobustCheck:
@@ -57,7 +69,7 @@ NAN_CHECK = RobustCheck(
 )
 
 
-def bootstrap_medians(values: np.ndarray, resamples: int, rng: np.random.Generator) -> np.ndarray:
+def bootstrap_medians(values: FloatArray, resamples: int, rng: np.random.Generator) -> FloatArray:
     """Medians of ``resamples`` bootstrap resamples of ``values``, drawn exactly without
     building the resamples: O(n + resamples · log n) instead of O(n · resamples).
 
@@ -78,7 +90,7 @@ def bootstrap_medians(values: np.ndarray, resamples: int, rng: np.random.Generat
     cdf = sps.binom.sf(k - 1, n, positions / n)  # P(K_k <= j), j = 1..n
     lower = np.minimum(np.searchsorted(cdf, rng.random(resamples), side="left"), n - 1)
     if n % 2:
-        return ordered[lower]
+        return np.asarray(ordered[lower], dtype=np.float64)
     j = lower + 1
     with np.errstate(divide="ignore", invalid="ignore"):
         chance_here = cdf[lower] - np.where(lower > 0, cdf[np.maximum(lower - 1, 0)], 0.0)
@@ -92,10 +104,10 @@ def bootstrap_medians(values: np.ndarray, resamples: int, rng: np.random.Generat
         step = np.ceil(room * (1 - rng.random(resamples) ** (1 / (n - m))))
     step = np.clip(np.nan_to_num(step), 1, None).astype(np.int64)
     upper = np.where(split & (room > 0), np.minimum(lower + step, n - 1), lower)
-    return (ordered[lower] + ordered[upper]) / 2
+    return np.asarray((ordered[lower] + ordered[upper]) / 2, dtype=np.float64)
 
 
-def jackknife_medians(values: np.ndarray) -> np.ndarray:
+def jackknife_medians(values: FloatArray) -> FloatArray:
     """Leave-one-out medians in O(n log n): removing one value leaves one of two medians."""
     n = values.size
     ordered = np.sort(values)
@@ -114,52 +126,70 @@ def jackknife_medians(values: np.ndarray) -> np.ndarray:
         high_removed = (ordered[k - 1] + ordered[k]) / 2
         # removing the middle value itself leaves its two neighbours as the middle pair
         middle_removed = (ordered[k - 1] + ordered[k + 1]) / 2
-        return np.where(rank < k, low_removed, np.where(rank == k, middle_removed, high_removed))
-    return np.where(rank <= k, low_removed, high_removed)
+        medians = np.where(rank < k, low_removed, np.where(rank == k, middle_removed, high_removed))
+        return np.asarray(medians, dtype=np.float64)
+    return np.asarray(np.where(rank <= k, low_removed, high_removed), dtype=np.float64)
+
+
+def bca_acceleration(jackknife: Sequence[FloatArray]) -> float:
+    """Acceleration of the BCa interval from the jackknife values, one array per sample.
+
+    Each sample j of size n_j gives influence values U_ji = (n_j - 1)(mean_j - theta_(j,i))
+    and a = sum_j sum_i U^3 / n_j^3 over 6 (sum_j sum_i U^2 / n_j^2)^(3/2) (Efron &
+    Tibshirani 1993, eq. 14.15, per sample; the form scipy.stats.bootstrap uses for several
+    samples); one sample gives eq. 14.15 itself.
+
+    The mean is taken of the differences from the sample's first value, so a sample whose
+    jackknife values are all equal (usual with tied data: every leave-one-out median the
+    same) has influence values of exactly 0 instead of rounding noise, whose cube-to-square
+    ratio would otherwise be an arbitrary acceleration. No spread at all gives 0."""
+    cubes = squares = 0.0
+    for values in jackknife:
+        n = values.size
+        if n == 0:
+            continue
+        shifted = values - values[0]
+        influence = (n - 1) * (shifted.mean() - shifted)
+        cubes += float(np.sum(influence**3)) / n**3
+        squares += float(np.sum(influence**2)) / n**2
+    denominator = 6 * squares**1.5
+    return cubes / denominator if denominator > 0 else 0.0
 
 
 def bca_interval(
     estimate: float,
-    replicates: np.ndarray,
-    jackknife: np.ndarray | list[np.ndarray],
+    replicates: FloatArray,
+    jackknife: FloatArray | Sequence[FloatArray],
     confidence: float,
 ) -> tuple[float, float]:
     """BCa interval from bootstrap replicates and jackknife values of the statistic.
 
-    ``jackknife`` holds the leave-one-out values, one array per sample. With several
-    samples the acceleration combines each sample's jackknife influence values
-    U_ji = (n_j - 1)(mean_j - theta_(j,i)) as a = sum_j sum_i U^3 / n_j^3 over
-    6 (sum_j sum_i U^2 / n_j^2)^(3/2) (Efron & Tibshirani 1993, eq. 14.15, per sample; the
-    form scipy.stats.bootstrap uses for several samples); one sample gives eq. 14.15."""
+    ``jackknife`` holds the leave-one-out values, one array per sample (a single array for
+    one sample); see ``bca_acceleration``. The bias correction is the normal quantile of the
+    share of replicates below the estimate (Efron & Tibshirani 1993, eq. 14.14), counting
+    replicates equal to it as half below, as scipy.stats.bootstrap does."""
     replicates = replicates[np.isfinite(replicates)]
     if replicates.size < 10:
         return math.nan, math.nan
-    below = np.mean(replicates < estimate) + 0.5 * np.mean(replicates == estimate)
+    below = float(np.mean(replicates < estimate) + 0.5 * np.mean(replicates == estimate))
     below = min(max(below, 1 / (2 * replicates.size)), 1 - 1 / (2 * replicates.size))
-    bias = sps.norm.ppf(below)
+    bias = float(sps.norm.ppf(below))
     samples = [jackknife] if isinstance(jackknife, np.ndarray) else list(jackknife)
-    cubes = squares = 0.0
-    for values in samples:
-        n = values.size
-        influence = (n - 1) * (values.mean() - values)
-        cubes += float(np.sum(influence**3)) / n**3
-        squares += float(np.sum(influence**2)) / n**2
-    denominator = 6 * squares**1.5
-    acceleration = cubes / denominator if denominator > 0 else 0.0
+    acceleration = bca_acceleration(samples)
     alpha = (1 - confidence) / 2
     bounds = []
-    for z in (sps.norm.ppf(alpha), sps.norm.ppf(1 - alpha)):
-        adjusted = sps.norm.cdf(bias + (bias + z) / (1 - acceleration * (bias + z)))
+    for z in (float(sps.norm.ppf(alpha)), float(sps.norm.ppf(1 - alpha))):
+        adjusted = float(sps.norm.cdf(bias + (bias + z) / (1 - acceleration * (bias + z))))
         bounds.append(float(np.quantile(replicates, adjusted)))
     return bounds[0], bounds[1]
 
 
-def _count_at_most(x: np.ndarray, y: np.ndarray, value: float) -> int:
+def _count_at_most(x: FloatArray, y: FloatArray, value: float) -> int:
     """How many y_j - x_i are <= value (x and y sorted): x_i >= y_j - value."""
     return int(x.size * y.size - np.searchsorted(x, y - value, side="left").sum())
 
 
-def _kth_difference(x: np.ndarray, y: np.ndarray, rank: int, enumerate_at: int = 250_000) -> float:
+def _kth_difference(x: FloatArray, y: FloatArray, rank: int, enumerate_at: int = 250_000) -> float:
     """The rank-th smallest (1-based) of all y_j - x_i, for sorted x and y, exactly.
 
     Bisect on the value, keeping count(low) < rank <= count(high), until at most
@@ -211,7 +241,7 @@ EXACT_RANK_PAIRS = 2500
 
 
 @functools.lru_cache(maxsize=256)
-def _mann_whitney_null(n: int, m: int) -> np.ndarray:
+def _mann_whitney_null(n: int, m: int) -> FloatArray:
     """P(U = u), u = 0..n*m, for U = #{y_j > x_i} with no ties, by the recursion
     P_{n,m}(u) = n/(n+m) P_{n-1,m}(u - m) + m/(n+m) P_{n,m-1}(u) (Mann & Whitney 1947)."""
     # row[j] holds P_{i,j} for the current i; start with i = 0: U = 0 surely.
@@ -248,7 +278,7 @@ def hl_rank(n: int, m: int, confidence: float = 0.95) -> int:
 
 
 def hodges_lehmann(
-    x_logs: np.ndarray, y_logs: np.ndarray, confidence: float = 0.95
+    x_logs: FloatArray, y_logs: FloatArray, confidence: float = 0.95
 ) -> tuple[float, float, float]:
     """Hodges–Lehmann shift of y over x (on the scale given) with its CI; the CI is NaN when
     the samples are too small to reach the confidence level."""
@@ -272,37 +302,21 @@ def hodges_lehmann(
     return shift, _kth_difference(x, y, rank), _kth_difference(x, y, total - rank + 1)
 
 
-class GroupValues:
-    """Usable (policy-applied) values per grouping × level × outcome, read once."""
-
-    def __init__(self, used: pl.DataFrame, groupings: tuple[str, ...], outcomes: tuple[str, ...]):
-        self._used = used
-        self._outcomes = outcomes
-        self._parts: dict[str, dict] = {}
-        self._groupings = groupings
-
-    def values(self, grouping: str, level: str, outcome: str) -> np.ndarray:
-        if grouping not in self._parts:
-            columns = [o + USED for o in self._outcomes]
-            parts = self._used.select(grouping, *columns).partition_by(grouping, as_dict=True)
-            self._parts[grouping] = {str(key[0]): part for key, part in parts.items()}
-        part = self._parts[grouping].get(level)
-        if part is None:
-            return np.empty(0)
-        return part[outcome + USED].drop_nulls().to_numpy()
-
-
 def robust_check(
-    a: np.ndarray,
-    b: np.ndarray,
+    a: FloatArray,
+    b: FloatArray,
     *,
     confidence: float = 0.95,
     resamples: int = DEFAULT_RESAMPLES,
     seed: int = DEFAULT_SEED,
-    replicates_a: np.ndarray | None = None,
-    replicates_b: np.ndarray | None = None,
+    replicates_a: FloatArray | None = None,
+    replicates_b: FloatArray | None = None,
 ) -> RobustCheck:
-    """All cross-checks for one comparison of positive values a (reference) and b."""
+    """All cross-checks for one comparison of positive values a (reference) and b.
+
+    Low level: replicates not given are drawn here from one generator seeded with ``seed``
+    (a's first). To check many comparisons use ``CrossChecker``, which passes each group's
+    own replicates in."""
     if a.size < 2 or b.size < 2:
         return NAN_CHECK
     rng = np.random.default_rng(seed)
@@ -331,74 +345,156 @@ def robust_check(
     )
 
 
-ROBUST_COLUMNS = (
-    "boot_median_ratio_low",
-    "boot_median_ratio_high",
-    "hl_ratio",
-    "hl_ci_low",
-    "hl_ci_high",
-    "mann_whitney_p",
-)
+#: The cross-check columns of a comparisons frame, in this order (``columns.CrossCheckColumns``).
+CROSS_CHECK_COLUMNS = tuple(CROSS_CHECK_SCHEMA)
+ROBUST_COLUMNS = CROSS_CHECK_COLUMNS  # the earlier name
+
+
+def _column_values(check: RobustCheck) -> tuple[float, ...]:
+    """The figures of a check in the order of CROSS_CHECK_COLUMNS."""
+    return (
+        check.median_ratio_ci_low,
+        check.median_ratio_ci_high,
+        check.hl_ratio,
+        check.hl_ci_low,
+        check.hl_ci_high,
+        check.mann_whitney_p,
+    )
+
+
+def checks_frame(keys: Sequence[str], checks: Mapping[str, RobustCheck]) -> pl.DataFrame:
+    """One row per key, in the order given: ``key`` and the CROSS_CHECK_COLUMNS (Float64),
+    null where a figure is NaN or the key has no check."""
+    missing = (None,) * len(CROSS_CHECK_COLUMNS)
+    rows = [(key, *(_column_values(checks[key]) if key in checks else missing)) for key in keys]
+    schema: dict[str, pl.DataType] = {"key": pl.Utf8()}
+    schema.update({name: pl.Float64() for name in CROSS_CHECK_COLUMNS})
+    frame = pl.DataFrame(rows, schema=schema, orient="row")
+    return frame.with_columns(pl.col(CROSS_CHECK_COLUMNS).fill_nan(None))
+
+
+def group_seed(seed: int, group: GroupId) -> list[int]:
+    """Seed words for a group's generator: ``seed`` and 64 bits of the SHA-256 of the
+    group's identity (parts joined by the unit separator, None as empty), so the same group
+    gets the same replicates in every process and every order of work."""
+    text = "\x1f".join("" if part is None else part for part in group)
+    digest = hashlib.sha256(text.encode("utf-8")).digest()
+    return [seed, int.from_bytes(digest[:8], "big")]
+
+
+class CrossChecker:
+    """Cross-checks for comparisons, with bootstrap replicates drawn once per group and
+    seeded from the group's identity, so the result for a comparison does not depend on
+    which other comparisons were checked before it, or in what order."""
+
+    def __init__(
+        self,
+        lookup: Callable[[GroupId], FloatArray],
+        *,
+        confidence: float = 0.95,
+        resamples: int = DEFAULT_RESAMPLES,
+        seed: int = DEFAULT_SEED,
+    ) -> None:
+        self._lookup = lookup
+        self.confidence = confidence
+        self.resamples = resamples
+        self.seed = seed
+        self._groups: dict[GroupId, tuple[FloatArray, FloatArray | None]] = {}
+        self._lock = threading.Lock()
+
+    def _group(self, group: GroupId) -> tuple[FloatArray, FloatArray | None]:
+        """The group's values and bootstrap medians (None below 2 values), made once; the
+        lookup runs under the lock too, so it need not be thread-safe itself."""
+        with self._lock:
+            known = self._groups.get(group)
+            if known is None:
+                values = np.asarray(self._lookup(group), dtype=np.float64)
+                replicates = None
+                if values.size >= 2:
+                    rng = np.random.default_rng(group_seed(self.seed, group))
+                    replicates = bootstrap_medians(values, self.resamples, rng)
+                known = self._groups[group] = (values, replicates)
+            return known
+
+    def check(self, a: GroupId, b: GroupId) -> RobustCheck:
+        """Cross-checks of group b against group a (the reference, the denominator)."""
+        values_a, replicates_a = self._group(a)
+        values_b, replicates_b = self._group(b)
+        return robust_check(
+            values_a,
+            values_b,
+            confidence=self.confidence,
+            resamples=self.resamples,
+            seed=self.seed,
+            replicates_a=replicates_a,
+            replicates_b=replicates_b,
+        )
+
+    def check_many(
+        self,
+        jobs: Sequence[tuple[str, GroupId, GroupId]],
+        *,
+        progress: Callable[[int, int], None] | None = None,
+        cancelled: Callable[[], bool] | None = None,
+    ) -> dict[str, RobustCheck]:
+        """Checks for (key, a, b) jobs in order, by key. Stops before the next job once
+        ``cancelled()`` is true. ``progress(done, total)`` comes after jobs 1, 11, 21, ...
+        and once more at the end (done < total when cancelled); not at all for no jobs."""
+        checks: dict[str, RobustCheck] = {}
+        total = len(jobs)
+        done = 0
+        for key, a, b in jobs:
+            if cancelled is not None and cancelled():
+                break
+            checks[key] = self.check(a, b)
+            done += 1
+            if progress is not None and done % 10 == 1:
+                progress(done, total)
+        if progress is not None and total and done % 10 != 1:
+            progress(done, total)
+        return checks
+
+
+#: One comparison to cross-check: its key and its two groups (a is the reference).
+CheckJob = tuple[str, GroupId, GroupId]
+
+
+def group_id(row: ComparisonRow, which: Side) -> GroupId:
+    """The group of one side of a comparison."""
+    level = row["level_a"] if which == "a" else row["level_b"]
+    return (row["grouping"], row["within"], row["stratum"], level, row["outcome"])
+
+
+def check_jobs(frame: pl.DataFrame, skip: Collection[str] = ()) -> list[CheckJob]:
+    """The cross-checks the rows of a comparisons frame need, leaving out keys in ``skip``."""
+    jobs = []
+    for index in range(frame.height):
+        row = comparison_row(frame, index)
+        if row["key"] not in skip:
+            jobs.append((row["key"], group_id(row, "a"), group_id(row, "b")))
+    return jobs
 
 
 def robust_all(
-    result,
+    result: ScanResult,
     *,
     resamples: int = DEFAULT_RESAMPLES,
     seed: int = DEFAULT_SEED,
     progress: Callable[[int, int], None] | None = None,
     cancelled: Callable[[], bool] | None = None,
 ) -> pl.DataFrame:
-    """The comparisons frame of a ScanResult with the robust columns added for every row."""
+    """The comparisons frame of a scan result with the cross-check columns added for every
+    row (null where a row was not reached before ``cancelled()`` turned true)."""
+    if result.values is None:
+        raise ValueError("cross-checks need raw values; a summary table has none")
     comparisons = result.comparisons
-    groups = GroupValues(result.used, result.table.groupings, result.table.outcomes)
-    cache: dict[tuple[str, str, str], np.ndarray] = {}
-    confidence = result.settings.confidence
-    rows = comparisons.select("grouping", "outcome", "level_a", "level_b").rows()
-    columns: dict[str, list[float]] = {name: [] for name in ROBUST_COLUMNS}
-    for index, (grouping, outcome, level_a, level_b) in enumerate(rows):
-        if cancelled is not None and cancelled():
-            break
-        arrays = []
-        for level in (level_a, level_b):
-            key = (grouping, level, outcome)
-            values = groups.values(*key)
-            if key not in cache and values.size >= 2:
-                # one seed per group so the same group's replicates are reused
-                group_seed = [seed, *(ord(c) for c in "|".join(key))]
-                cache[key] = bootstrap_medians(values, resamples, np.random.default_rng(group_seed))
-            arrays.append((values, cache.get(key)))
-        (a, reps_a), (b, reps_b) = arrays
-        check = robust_check(
-            a,
-            b,
-            confidence=confidence,
-            resamples=resamples,
-            seed=seed,
-            replicates_a=reps_a,
-            replicates_b=reps_b,
-        )
-        for name, value in zip(
-            ROBUST_COLUMNS,
-            (
-                check.median_ratio_ci_low,
-                check.median_ratio_ci_high,
-                check.hl_ratio,
-                check.hl_ci_low,
-                check.hl_ci_high,
-                check.mann_whitney_p,
-            ),
-            strict=True,
-        ):
-            columns[name].append(value)
-        if progress is not None and (index % 10 == 0 or index == len(rows) - 1):
-            progress(index + 1, len(rows))
-    filled = len(columns[ROBUST_COLUMNS[0]])
-    for name in ROBUST_COLUMNS:
-        columns[name] += [math.nan] * (len(rows) - filled)
-    return comparisons.with_columns(
-        [
-            pl.Series(name, values, dtype=pl.Float64).fill_nan(None)
-            for name, values in columns.items()
-        ]
+    checker = CrossChecker(
+        result.values.values,
+        confidence=result.settings.confidence,
+        resamples=resamples,
+        seed=seed,
     )
+    jobs = check_jobs(comparisons)
+    checks = checker.check_many(jobs, progress=progress, cancelled=cancelled)
+    frame = checks_frame([key for key, _, _ in jobs], checks)
+    return comparisons.with_columns(frame.drop("key").get_columns())

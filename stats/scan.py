@@ -3,67 +3,72 @@
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field, replace
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any, Literal
 
 import numpy as np
+import numpy.typing as npt
 import polars as pl
 
 from . import diagnostics, equivalence, precision
+from .columns import COMPARISON_SCHEMA, key_expression, side
 from .load import InputError, Table
-from .multiplicity import FAMILIES, adjust
+from .multiplicity import adjust
 from .policy import ValuePolicy, apply_policy
 from .summaries import group_summaries, level_order
-from .ttest import TESTS, log_t_test
+from .ttest import LogTTest, log_t_test
+from .values import GroupSpec, GroupValues, group_specs
+from .vocabulary import FAMILIES, PAIRS, TESTS, Family, Pairs, Test, choose
 
-PAIRS = ("all", "reference")
-KEY_SEPARATOR = "|"
-WITHIN = " within "  # joins a grouping and its stratum in a stratified grouping's name
+Array = npt.NDArray[np.float64]
 
-#: The columns every scan CSV starts with, in this order.
-LEADING_COLUMNS = (
-    "grouping",
-    "outcome",
-    "level_a",
-    "level_b",
-    "n_a",
-    "n_b",
-    "gm_a",
-    "gm_b",
-    "median_a",
-    "median_b",
-    "ratio",
-    "ci_low",
-    "ci_high",
-    "p_value",
-    "p_holm",
-    "q_bh",
-    "warnings",
-)
+#: The columns that name a set of levels compared with each other.
+_SET = ["grouping", "within", "stratum"]
+
+
+@dataclass(frozen=True)
+class Reference:
+    """The reference level (denominator) of one grouping, or of every grouping that has a
+    level of that name when ``grouping`` is None."""
+
+    level: str
+    grouping: str | None = None
+
+    @classmethod
+    def parse(cls, text: str) -> Reference:
+        """``LEVEL`` or ``GROUPING=LEVEL``."""
+        grouping, equals, level = text.partition("=")
+        if not equals:
+            return cls(text)
+        if not grouping or not level:
+            raise ValueError(f"reference {text!r}: write LEVEL or GROUPING=LEVEL")
+        return cls(level, grouping)
+
+    def __str__(self) -> str:
+        return self.level if self.grouping is None else f"{self.grouping}={self.level}"
 
 
 @dataclass(frozen=True)
 class ScanSettings:
     """Everything that decides the numbers of a scan (exported beside every CSV)."""
 
-    pairs: str = "all"
-    reference: tuple[str, ...] = ()
-    test: str = "welch"
+    pairs: Pairs = "all"
+    reference: tuple[Reference, ...] = ()
+    test: Test = "welch"
     confidence: float = 0.95
     policy: ValuePolicy = field(default_factory=ValuePolicy)
-    family: str = "scan"
+    family: Family = "scan"
     band: tuple[float, float] = equivalence.DEFAULT_BAND
     target_ratio: float | None = None
     within: str | None = None
 
     def __post_init__(self) -> None:
-        if self.pairs not in PAIRS:
-            raise ValueError(f"unknown pairs {self.pairs!r}; choose all or reference")
-        if self.test not in TESTS:
-            raise ValueError(f"unknown test {self.test!r}; choose welch or pooled")
+        choose(self.pairs, PAIRS, "pairs")
+        choose(self.test, TESTS, "test")
+        choose(self.family, FAMILIES, "family")
         if not 0.5 <= self.confidence < 1:
             raise ValueError(f"confidence must be at least 0.5 and below 1, got {self.confidence}")
-        if self.family not in FAMILIES:
-            raise ValueError(f"unknown family {self.family!r}; choose scan, outcome or grouping")
         equivalence.check_band(*self.band)
         if self.target_ratio is not None and (
             not math.isfinite(self.target_ratio) or self.target_ratio <= 0 or self.target_ratio == 1
@@ -72,123 +77,143 @@ class ScanSettings:
                 f"target ratio must be a positive number other than 1, got {self.target_ratio}"
             )
 
-    def as_dict(self) -> dict:
+    def as_dict(self) -> dict[str, Any]:
         data = asdict(self)
         data["policy"] = asdict(self.policy)
         data["band"] = list(self.band)
-        data["reference"] = list(self.reference)
+        data["reference"] = [str(item) for item in self.reference]
         return data
 
 
-def _reference_for(grouping: str, levels: list[str], references: tuple[str, ...]) -> str:
-    for item in references:
-        if "=" in item:
-            name, _, level = item.partition("=")
-            if name == grouping.partition(WITHIN)[0] and level in levels:
-                return level
-        elif item in levels:
-            return item
-    return levels[0]
+@dataclass(frozen=True)
+class DataSource:
+    """What a scan read: the file, its fingerprint, its kind and its column roles."""
 
+    path: Path | None
+    fingerprint: str
+    kind: Literal["raw", "summary table"]
+    groupings: tuple[str, ...]
+    outcomes: tuple[str, ...]
+    unparsed: dict[str, int] = field(default_factory=dict)
 
-def build_pairs(summaries: pl.DataFrame, settings: ScanSettings) -> pl.DataFrame:
-    """One row per grouping × (level_a, level_b); level_a is the denominator."""
-    rows: dict[str, list[str]] = {"grouping": [], "level_a": [], "level_b": []}
-    levels_by_grouping = (
-        summaries.group_by("grouping", maintain_order=True).agg(pl.col("level").unique()).rows()
-    )
-    all_levels = set()
-    for grouping, levels in levels_by_grouping:
-        ordered = level_order(list(levels))
-        all_levels.update(ordered)
-        all_levels.update(f"{grouping.partition(WITHIN)[0]}={level}" for level in ordered)
-        if settings.pairs == "reference":
-            reference = _reference_for(grouping, ordered, settings.reference)
-            pairs = [(reference, level) for level in ordered if level != reference]
-        else:
-            pairs = [
-                (ordered[i], ordered[j])
-                for i in range(len(ordered))
-                for j in range(i + 1, len(ordered))
-            ]
-        for level_a, level_b in pairs:
-            rows["grouping"].append(grouping)
-            rows["level_a"].append(level_a)
-            rows["level_b"].append(level_b)
-    for item in settings.reference:
-        if item not in all_levels:
-            raise InputError(
-                f"reference level {item!r} is not a level of any grouping column; "
-                "write LEVEL or GROUPING=LEVEL"
-            )
-    return pl.DataFrame(rows, schema={"grouping": pl.Utf8, "level_a": pl.Utf8, "level_b": pl.Utf8})
-
-
-def _family_codes(frame: pl.DataFrame, family: str) -> np.ndarray:
-    if family == "scan":
-        return np.zeros(frame.height, dtype=np.int64)
-    return frame.select(pl.col(family).rank("dense")).to_series().to_numpy()
+    @property
+    def name(self) -> str:
+        return self.path.name if self.path is not None else "<table>"
 
 
 @dataclass(frozen=True)
 class ScanResult:
-    """The comparisons frame plus what produced it."""
+    """The comparisons frame (``columns.COMPARISON_SCHEMA``) plus what produced it.
+
+    ``values`` gives each group's usable values for charts and cross-checks; it is None
+    for a scan of a summary table, which has no raw values."""
 
     comparisons: pl.DataFrame
     summaries: pl.DataFrame
     settings: ScanSettings
-    table: Table
-    used: pl.DataFrame  # the table with the policy columns, for histograms and robust checks
+    source: DataSource
+    values: GroupValues | None
 
-    def metadata(self) -> dict:
+    def metadata(self) -> dict[str, Any]:
         return {
-            "data_file": str(self.table.path) if self.table.path else None,
-            "data_fingerprint_sha256": self.table.fingerprint,
-            "groupings": list(self.table.groupings),
-            "outcomes": list(self.table.outcomes),
+            "data_file": str(self.source.path) if self.source.path else None,
+            "data_kind": self.source.kind,
+            "data_fingerprint_sha256": self.source.fingerprint,
+            "groupings": list(self.source.groupings),
+            "outcomes": list(self.source.outcomes),
             "settings": self.settings.as_dict(),
             "comparisons": self.comparisons.height,
         }
 
 
-def stratify(table: Table, within: str) -> Table:
-    """Compare inside each level of ``within``: every other grouping g becomes one grouping
-    per stratum s, named ``"g within w=s"``, whose value is g's level on the rows of s and
-    missing elsewhere. Everything downstream then works unchanged."""
+def _reference_for(
+    grouping: str, levels: list[str], references: tuple[Reference, ...]
+) -> str | None:
+    for item in references:
+        if item.grouping in (None, grouping) and item.level in levels:
+            return item.level
+    return None
+
+
+def _check_references(summaries: pl.DataFrame, references: tuple[Reference, ...]) -> None:
+    known = set(summaries.select("grouping", "level").unique().rows())
+    levels = {level for _, level in known}
+    for item in references:
+        found = item.level in levels if item.grouping is None else (item.grouping, item.level) in known
+        if not found:
+            raise InputError(
+                f"reference level {str(item)!r} is not a level of any grouping column; "
+                "write LEVEL or GROUPING=LEVEL"
+            )
+
+
+def _level_pairs(grouping: str, levels: list[str], settings: ScanSettings) -> list[tuple[str, str]]:
+    ordered = level_order(levels)
+    if settings.pairs == "reference":
+        reference = _reference_for(grouping, ordered, settings.reference) or ordered[0]
+        return [(reference, level) for level in ordered if level != reference]
+    return [(ordered[i], ordered[j]) for i in range(len(ordered)) for j in range(i + 1, len(ordered))]
+
+
+def build_pairs(summaries: pl.DataFrame, settings: ScanSettings) -> pl.DataFrame:
+    """One row per grouping × stratum × (level_a, level_b); level_a is the denominator."""
+    _check_references(summaries, settings.reference)
+    sets = summaries.group_by(_SET, maintain_order=True).agg(pl.col("level").unique()).rows()
+    rows = [
+        (grouping, within, stratum, level_a, level_b)
+        for grouping, within, stratum, levels in sets
+        for level_a, level_b in _level_pairs(grouping, list(levels), settings)
+    ]
+    return pl.DataFrame(
+        rows, schema={name: pl.Utf8 for name in [*_SET, "level_a", "level_b"]}, orient="row"
+    )
+
+
+def _family_codes(frame: pl.DataFrame, family: Family) -> npt.NDArray[np.int64]:
+    if family == "scan":
+        return np.zeros(frame.height, dtype=np.int64)
+    codes: npt.NDArray[np.int64] = frame.select(pl.col(family).rank("dense")).to_series().to_numpy()
+    return codes
+
+
+def check_within(table: Table, within: str | None) -> None:
+    """``--within`` must name a grouping column and leave another one to compare."""
+    if within is None:
+        return
     if within not in table.groupings:
         raise InputError(
             f"{table.name}: --within {within!r} is not a grouping column; "
             f"groupings are: {', '.join(table.groupings)}"
         )
-    others = [g for g in table.groupings if g != within]
-    if not others:
+    if len(table.groupings) < 2:
         raise InputError(
             f"{table.name}: --within {within!r} needs another grouping column to compare "
             "inside its levels; name one with --group"
         )
-    strata = level_order(table.frame[within].drop_nulls().unique().to_list())
-    derived: list[pl.Expr] = []
-    names: list[str] = []
-    for grouping in others:
-        for stratum in strata:
-            name = f"{grouping}{WITHIN}{within}={stratum}"
-            names.append(name)
-            derived.append(pl.when(pl.col(within) == stratum).then(pl.col(grouping)).alias(name))
-    return replace(table, frame=table.frame.with_columns(derived), groupings=tuple(names))
 
 
 def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
     """Compute every comparison of the table under the settings."""
     settings = settings or ScanSettings()
-    if settings.within is not None:
-        table = stratify(table, settings.within)
-    used = apply_policy(table.frame, table.outcomes, settings.policy)
-    summaries = group_summaries(used, table.groupings, table.outcomes)
-    normality = diagnostics.group_normality(used, table.groupings, table.outcomes)
-    summaries = summaries.join(normality, on=["grouping", "level", "outcome"], how="left")
-    summaries = complete_summaries(summaries)
-    comparisons = compare_summaries(summaries, settings, table.outcomes)
-    return ScanResult(comparisons, summaries, settings, table, used)
+    check_within(table, settings.within)
+    specs: list[GroupSpec] = group_specs(table.groupings, settings.within)
+    used = apply_policy(table.frame, table.outcomes, settings.policy, table.names)
+    values = GroupValues(used, specs, table.outcomes, table.names)
+    summaries = group_summaries(used, specs, table.outcomes, table.names)
+    normality = diagnostics.group_normality(values)
+    summaries = summaries.join(
+        normality, on=["grouping", "within", "stratum", "level", "outcome"], how="left", nulls_equal=True
+    )
+    comparisons = compare_summaries(complete_summaries(summaries), settings, table.outcomes)
+    source = DataSource(
+        path=table.path,
+        fingerprint=table.fingerprint,
+        kind="raw",
+        groupings=table.groupings,
+        outcomes=table.outcomes,
+        unparsed=dict(table.unparsed),
+    )
+    return ScanResult(comparisons, summaries, settings, source, values)
 
 
 def complete_summaries(summaries: pl.DataFrame) -> pl.DataFrame:
@@ -202,41 +227,34 @@ def complete_summaries(summaries: pl.DataFrame) -> pl.DataFrame:
     )
 
 
-def compare_summaries(
-    summaries: pl.DataFrame, settings: ScanSettings, outcomes: tuple[str, ...]
-) -> pl.DataFrame:
-    """Every comparison from per-group summaries (one row per grouping × level × outcome):
-    the part of the scan that needs no raw values."""
+def _join_sides(summaries: pl.DataFrame, settings: ScanSettings, outcomes: tuple[str, ...]) -> pl.DataFrame:
+    """Each pair of levels with both groups' figures (``n_a``, ``n_b``, ...), in outcome order."""
     pairs = build_pairs(summaries, settings)
-    stats_columns = [c for c in summaries.columns if c not in ("grouping", "level", "outcome")]
-    side_a = summaries.rename({"level": "level_a", **{c: c + "_a" for c in stats_columns}})
-    side_b = summaries.rename({"level": "level_b", **{c: c + "_b" for c in stats_columns}})
-    frame = pairs.join(side_a, on=["grouping", "level_a"], how="inner").join(
-        side_b, on=["grouping", "outcome", "level_b"], how="inner"
+    figures = [c for c in summaries.columns if c not in (*_SET, "level", "outcome")]
+
+    def one_side(which: Literal["a", "b"]) -> pl.DataFrame:
+        return summaries.rename({"level": side("level", which), **{c: side(c, which) for c in figures}})
+
+    frame = pairs.join(one_side("a"), on=[*_SET, "level_a"], how="inner", nulls_equal=True).join(
+        one_side("b"), on=[*_SET, "outcome", "level_b"], how="inner", nulls_equal=True
     )
     order = {name: index for index, name in enumerate(outcomes)}
-    frame = (
-        frame.with_columns(
-            pl.col("outcome").replace_strict(order, return_dtype=pl.Int64).alias("__outcome_order")
-        )
-        .sort("grouping", "__outcome_order", maintain_order=True)
-        .drop("__outcome_order")
+    return frame.sort(
+        pl.col("grouping"),
+        pl.col("stratum"),
+        pl.col("outcome").replace_strict(order, return_dtype=pl.Int64),
+        maintain_order=True,
     )
 
-    def column(name: str) -> np.ndarray:
-        return frame[name].cast(pl.Float64).fill_null(np.nan).to_numpy()
+
+def _figures(frame: pl.DataFrame, test: LogTTest, settings: ScanSettings) -> dict[str, Array]:
+    """Every numeric column computed from the t-test and both groups' figures."""
+
+    def column(name: str) -> Array:
+        values: Array = frame[name].cast(pl.Float64).fill_null(np.nan).to_numpy()
+        return values
 
     n_a, n_b = column("n_a"), column("n_b")
-    test = log_t_test(
-        n_a,
-        column("mean_log_a"),
-        column("ss_log_a"),
-        n_b,
-        column("mean_log_b"),
-        column("ss_log_b"),
-        test=settings.test,
-        confidence=settings.confidence,
-    )
     ratio_low, ratio_high = test.ratio_ci
     holm, bh = adjust(test.p_value, _family_codes(frame, settings.family))
     alpha = 1 - settings.confidence
@@ -247,9 +265,13 @@ def compare_summaries(
     with np.errstate(divide="ignore", invalid="ignore"):
         pooled_sd = np.sqrt((column("ss_log_a") + column("ss_log_b")) / (n_a + n_b - 2))
         median_ratio = column("median_b") / column("median_a")
-        log_median_ratio = np.log(median_ratio)
         sd_log_ratio = sd_b / sd_a
-    extra = {
+    n_needed = (
+        precision.n_per_group(settings.target_ratio, pooled_sd, alpha=alpha)
+        if settings.target_ratio is not None
+        else np.full(frame.height, np.nan)
+    )
+    return {
         "ratio": test.ratio,
         "ci_low": ratio_low,
         "ci_high": ratio_high,
@@ -266,78 +288,56 @@ def compare_summaries(
         "sd_log_ratio": sd_log_ratio,
         "spread_p": diagnostics.spread_test(sd_a, n_a, sd_b, n_b),
         "median_gm_z": diagnostics.median_gm_z(
-            log_median_ratio, test.difference, sd_a, n_a, sd_b, n_b
+            np.log(median_ratio), test.difference, sd_a, n_a, sd_b, n_b
         ),
         "p_tost": p_tost,
         "tost_ci_low": tost_low,
         "tost_ci_high": tost_high,
         "ci_fold": ratio_high / ratio_low,
         "detectable_ratio": precision.detectable_ratio(n_a, n_b, pooled_sd, alpha=alpha),
+        "n_needed": n_needed,
     }
-    if settings.target_ratio is not None:
-        extra["n_needed"] = precision.n_per_group(settings.target_ratio, pooled_sd, alpha=alpha)
-    frame = frame.with_columns(
-        [pl.Series(name, values, dtype=pl.Float64) for name, values in extra.items()]
+
+
+def compare_summaries(
+    summaries: pl.DataFrame, settings: ScanSettings, outcomes: tuple[str, ...]
+) -> pl.DataFrame:
+    """Every comparison from per-group summaries (one row per grouping × stratum × level ×
+    outcome): the part of the scan that needs no raw values. Returns a frame with exactly
+    ``columns.COMPARISON_SCHEMA``."""
+    frame = _join_sides(summaries, settings, outcomes)
+
+    def column(name: str) -> Array:
+        values: Array = frame[name].cast(pl.Float64).fill_null(np.nan).to_numpy()
+        return values
+
+    test = log_t_test(
+        column("n_a"),
+        column("mean_log_a"),
+        column("ss_log_a"),
+        column("n_b"),
+        column("mean_log_b"),
+        column("ss_log_b"),
+        test=settings.test,
+        confidence=settings.confidence,
+    )
+    figures = _figures(frame, test, settings)
+    classes = equivalence.band_class(
+        figures["ci_low"],
+        figures["ci_high"],
+        figures["tost_ci_low"],
+        figures["tost_ci_high"],
+        settings.band,
     )
     frame = frame.with_columns(
-        pl.Series(
-            "band_class",
-            equivalence.band_class(ratio_low, ratio_high, tost_low, tost_high, settings.band),
-            dtype=pl.Utf8,
-        ),
+        [pl.Series(name, values, dtype=pl.Float64) for name, values in figures.items()]
+    ).with_columns(
+        pl.col(pl.Float64).fill_nan(None),
+        pl.Series("band_class", classes, dtype=pl.String).replace("", None),
         pl.lit(settings.test).alias("test"),
-        pl.lit(settings.confidence).alias("confidence"),
-    ).with_columns(pl.col(pl.Float64).fill_nan(None))
-    frame = frame.with_columns(
-        diagnostics.warning_expression().alias("warnings"),
-        pl.concat_str(["grouping", "outcome", "level_a", "level_b"], separator=KEY_SEPARATOR).alias(
-            "key"
-        ),
+        pl.lit(settings.confidence, pl.Float64).alias("confidence"),
     )
-    return frame.select(ordered_columns(frame))
-
-
-def ordered_columns(frame: pl.DataFrame) -> list[str]:
-    wanted = list(LEADING_COLUMNS) + [
-        "median_ratio",
-        "percent_change",
-        "log2_ratio",
-        "df",
-        "t",
-        "test",
-        "confidence",
-        "band_class",
-        "p_tost",
-        "tost_ci_low",
-        "tost_ci_high",
-        "ci_fold",
-        "detectable_ratio",
-        "n_needed",
-        "n_excluded_a",
-        "n_excluded_b",
-        "n_substituted_a",
-        "n_substituted_b",
-        "n_censored_a",
-        "n_censored_b",
-        "n_missing_a",
-        "n_missing_b",
-        "censored_share_a",
-        "censored_share_b",
-        "mean_log_difference",
-        "se_log",
-        "sd_log_a",
-        "sd_log_b",
-        "sd_log_ratio",
-        "spread_p",
-        "skew_log_a",
-        "skew_log_b",
-        "skew_raw_a",
-        "skew_raw_b",
-        "shapiro_w_a",
-        "shapiro_w_b",
-        "shapiro_p_a",
-        "shapiro_p_b",
-        "median_gm_z",
-        "key",
-    ]
-    return [name for name in wanted if name in frame.columns]
+    frame = frame.with_columns(
+        diagnostics.warning_expression().alias("warnings"), key_expression().alias("key")
+    )
+    return frame.select(list(COMPARISON_SCHEMA)).cast(COMPARISON_SCHEMA)

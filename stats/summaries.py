@@ -7,14 +7,21 @@ group and are computed in the same pass.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import polars as pl
 
-from .load import CENSORED_SUFFIX
-from .policy import EXCLUDED, SUBSTITUTED, USED
+from .load import DerivedNames
+from .values import GroupSpec
+
+#: The columns that name one group of one outcome.
+GROUP_COLUMNS = ("grouping", "within", "stratum", "level", "outcome")
 
 SUMMARY_SCHEMA = pl.Schema(
     {
         "grouping": pl.Utf8,
+        "within": pl.Utf8,
+        "stratum": pl.Utf8,
         "level": pl.Utf8,
         "outcome": pl.Utf8,
         "n": pl.Int64,
@@ -30,9 +37,7 @@ SUMMARY_SCHEMA = pl.Schema(
     }
 )
 
-LOG = "__log"  # the log of the used value, computed once per outcome before aggregating
-
-_STATS = [name for name in SUMMARY_SCHEMA if name not in ("grouping", "level", "outcome")]
+_STATS = [name for name in SUMMARY_SCHEMA if name not in GROUP_COLUMNS]
 
 
 def mean_and_sum_of_squares(values: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
@@ -44,55 +49,70 @@ def mean_and_sum_of_squares(values: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
     return mean, (values - mean).pow(2).sum()
 
 
-def _aggregations(outcome: str) -> list[pl.Expr]:
-    used = pl.col(outcome + USED)
-    logs = pl.col(outcome + LOG)
+def _aggregations(outcome: str, names: DerivedNames) -> list[pl.Expr]:
+    used = pl.col(names.used(outcome))
+    logs = pl.col(names.log(outcome))
     mean_log, ss_log = mean_and_sum_of_squares(logs)
-    prefix = outcome + "\x00"
+    stat = names.derived
     return [
-        used.count().cast(pl.Int64).alias(prefix + "n"),
-        pl.col(outcome).null_count().cast(pl.Int64).alias(prefix + "n_missing"),
-        pl.col(outcome + EXCLUDED).sum().cast(pl.Int64).alias(prefix + "n_excluded"),
-        pl.col(outcome + SUBSTITUTED).sum().cast(pl.Int64).alias(prefix + "n_substituted"),
-        pl.col(outcome + CENSORED_SUFFIX).sum().cast(pl.Int64).alias(prefix + "n_censored"),
-        mean_log.alias(prefix + "mean_log"),
-        ss_log.alias(prefix + "ss_log"),
-        used.median().alias(prefix + "median"),
-        logs.skew(bias=True).alias(prefix + "skew_log"),
-        used.skew(bias=True).alias(prefix + "skew_raw"),
+        used.count().cast(pl.Int64).alias(stat(outcome, "n")),
+        pl.col(outcome).null_count().cast(pl.Int64).alias(stat(outcome, "n_missing")),
+        pl.col(names.excluded(outcome)).sum().cast(pl.Int64).alias(stat(outcome, "n_excluded")),
+        pl.col(names.substituted(outcome))
+        .sum()
+        .cast(pl.Int64)
+        .alias(stat(outcome, "n_substituted")),
+        pl.col(names.censored(outcome)).sum().cast(pl.Int64).alias(stat(outcome, "n_censored")),
+        mean_log.alias(stat(outcome, "mean_log")),
+        ss_log.alias(stat(outcome, "ss_log")),
+        used.median().alias(stat(outcome, "median")),
+        logs.skew(bias=True).alias(stat(outcome, "skew_log")),
+        used.skew(bias=True).alias(stat(outcome, "skew_raw")),
+    ]
+
+
+def _identity(spec: GroupSpec) -> list[pl.Expr]:
+    stratum = pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)
+    return [
+        pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
+        pl.lit(spec.within, pl.Utf8).alias("within"),
+        stratum.alias("stratum"),
+        pl.col(spec.grouping).cast(pl.Utf8).alias("level"),
     ]
 
 
 def group_summaries(
-    frame: pl.DataFrame, groupings: tuple[str, ...], outcomes: tuple[str, ...]
+    frame: pl.DataFrame,
+    specs: Sequence[GroupSpec],
+    outcomes: Sequence[str],
+    names: DerivedNames,
 ) -> pl.DataFrame:
-    """One row per grouping × level × outcome (rows whose group is missing are left out)."""
-    aggregations = [expr for outcome in outcomes for expr in _aggregations(outcome)]
+    """One row per grouping × stratum × level × outcome (rows whose group or stratum is
+    missing are left out)."""
+    aggregations = [expr for outcome in outcomes for expr in _aggregations(outcome, names)]
     plans = [
         frame.lazy()
-        .with_columns([pl.col(o + USED).log().alias(o + LOG) for o in outcomes])
-        .filter(pl.col(grouping).is_not_null())
-        .group_by(grouping)
+        .with_columns([pl.col(names.used(o)).log().alias(names.log(o)) for o in outcomes])
+        .drop_nulls(spec.keys)
+        .group_by(spec.keys)
         .agg(aggregations)
-        .rename({grouping: "level"})
-        for grouping in groupings
+        for spec in specs
     ]
     parts: list[pl.DataFrame] = []
-    for grouping, wide in zip(groupings, pl.collect_all(plans), strict=True):
+    for spec, wide in zip(specs, pl.collect_all(plans), strict=True):
+        identity = _identity(spec)
         for outcome in outcomes:
-            prefix = outcome + "\x00"
             parts.append(
                 wide.select(
-                    pl.lit(grouping).alias("grouping"),
-                    pl.col("level").cast(pl.Utf8),
-                    pl.lit(outcome).alias("outcome"),
-                    *[pl.col(prefix + stat).alias(stat) for stat in _STATS],
+                    *identity,
+                    pl.lit(outcome, pl.Utf8).alias("outcome"),
+                    *[pl.col(names.derived(outcome, stat)).alias(stat) for stat in _STATS],
                 )
             )
     if not parts:
         return pl.DataFrame(schema=SUMMARY_SCHEMA)
     result = pl.concat(parts, how="vertical")
-    return result.cast(SUMMARY_SCHEMA).sort("grouping", "outcome", "level")
+    return result.cast(SUMMARY_SCHEMA).sort("grouping", "stratum", "outcome", "level")
 
 
 def level_order(levels: list[str]) -> list[str]:

@@ -11,7 +11,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats as sps
 
-TESTS = ("welch", "pooled")
+from .vocabulary import TESTS, Test
+
 
 
 @dataclass(frozen=True)
@@ -29,7 +30,8 @@ class LogTTest:
 
     @property
     def ratio(self) -> np.ndarray:
-        return np.exp(self.difference)
+        ratio: np.ndarray = np.exp(self.difference)
+        return ratio
 
     @property
     def ratio_ci(self) -> tuple[np.ndarray, np.ndarray]:
@@ -46,7 +48,7 @@ def log_t_test(
     mean_b: np.ndarray,
     ss_b: np.ndarray,
     *,
-    test: str = "welch",
+    test: Test = "welch",
     confidence: float = 0.95,
 ) -> LogTTest:
     """Welch or pooled t-test of mean(log b) - mean(log a) from counts, means and sums of

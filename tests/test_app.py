@@ -20,8 +20,8 @@ from textual.pilot import Pilot
 from textual.widgets import Button, Input, Markdown, TextArea
 
 from foldsift.demo.generate import demo_path
-from foldsift.stats.export import settings_path
-from foldsift.stats.reviews import ReviewStore
+from foldsift.tui.export import settings_path
+from foldsift.tui.store import ReviewStore
 from foldsift.stats.scan import ScanResult, ScanSettings
 from foldsift.stats.sentence import finding, readable_outcome
 from foldsift.tui.app import SORT_NAMES, FoldsiftApp

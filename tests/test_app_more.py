@@ -29,7 +29,7 @@ from textual.widgets import Input, Static
 from foldsift.demo.generate import demo_path
 from foldsift.stats.load import file_fingerprint
 from foldsift.stats.policy import USED
-from foldsift.stats.reviews import ReviewStore
+from foldsift.tui.store import ReviewStore
 from foldsift.stats.scan import ScanResult
 from foldsift.stats.sentence import finding, ratio_text
 from foldsift.tui.app import FoldsiftApp

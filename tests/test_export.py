@@ -1,4 +1,4 @@
-"""Tests for foldsift.stats.export: joining reviews, row selection and atomic CSV export."""
+"""Tests for foldsift.tui.export: joining reviews, row selection and atomic CSV export."""
 
 from __future__ import annotations
 
@@ -8,9 +8,9 @@ from pathlib import Path
 import polars as pl
 import pytest
 
-from foldsift.stats import export as export_mod
-from foldsift.stats.export import join_reviews, select_rows, settings_path, write_export
-from foldsift.stats.reviews import ReviewStore
+from foldsift.tui import export as export_mod
+from foldsift.tui.export import join_reviews, select_rows, settings_path, write_export
+from foldsift.tui.store import ReviewStore
 
 # Values chosen so any rounding on the way to text would show up on reading back.
 FLOATS = [

@@ -38,13 +38,15 @@ def frame() -> pl.DataFrame:
             "n_a": [24, 8, 48, 10, 1],
             "n_b": [24, 30, 48, 12, 20],
             "ci_fold": [1.5, 2.0, 1.2, 3.0, None],
-            "warnings": ["", "small-n;log-skew", "", "log-skew", "too-few"],
+            "warnings": [[], ["small-n", "log-skew"], [], ["log-skew"], ["too-few"]],
+            "stratum": [None, None, None, None, None],
             "flagged": [True, False, False, True, False],
             "decision": ["keep", "doubt", None, "drop", None],
             "note": ["check the lab sheet", "", "", "odd", ""],
             "on_earlier_data": [False, True, False, False, False],
-            "band_class": ["different", "inconclusive", "equivalent", "minor-difference", ""],
-        }
+            "band_class": ["different", "inconclusive", "equivalent", "minor-difference", None],
+        },
+        schema_overrides={"stratum": pl.String},
     )
 
 

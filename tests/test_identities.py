@@ -18,7 +18,7 @@ from hypothesis import strategies as st
 from scipy import stats as sps
 
 from foldsift.stats.load import load_table
-from foldsift.stats.scan import ScanSettings, run_scan
+from foldsift.stats.scan import Reference, ScanSettings, run_scan
 
 RTOL = 1e-9
 
@@ -53,7 +53,7 @@ def test_swapping_groups_inverts_ratio_and_ci(a, b, test):
     reciprocal and the CI (low, high) becomes (1/high, 1/low); p is unchanged."""
     x, y = draw(a), draw(b)
     forward = scan(x, y, test)
-    backward = scan(x, y, test, pairs="reference", reference=("b",))
+    backward = scan(x, y, test, pairs="reference", reference=(Reference("b"),))
     assert (backward["level_a"], backward["level_b"]) == ("b", "a")
     assert close(backward["ratio"], 1 / forward["ratio"])
     assert close(backward["ci_low"], 1 / forward["ci_high"])

@@ -28,7 +28,7 @@ from hypothesis import strategies as st
 from statsmodels.stats.weightstats import CompareMeans, DescrStatsW, ttest_ind
 
 from foldsift.stats.load import load_table
-from foldsift.stats.scan import ScanSettings, run_scan
+from foldsift.stats.scan import Reference, ScanSettings, run_scan
 from foldsift.stats.summaries import mean_and_sum_of_squares
 from foldsift.stats.ttest import log_t_test
 from foldsift.tui.cli import main
@@ -137,7 +137,7 @@ def test_auto83b_log_welch_through_run_scan():
     t = -14.457, df = 193.33, 95% CI of US/Japan 0.60576 to 0.68324."""
     result = run_scan(
         load_table(AUTO83B),
-        ScanSettings(test="welch", pairs="reference", reference=("origin=japan",)),
+        ScanSettings(test="welch", pairs="reference", reference=(Reference.parse("origin=japan"),)),
     )
     row = result.comparisons.row(0, named=True)
     assert (row["level_a"], row["level_b"]) == ("japan", "us")

@@ -1,4 +1,4 @@
-"""Tests for foldsift.stats.reviews: round trips, clearing, errors, WAL and crash durability."""
+"""Tests for foldsift.tui.store: round trips, clearing, errors, WAL and crash durability."""
 
 from __future__ import annotations
 
@@ -14,8 +14,8 @@ from pathlib import Path
 import polars as pl
 import pytest
 
-from foldsift.stats import reviews as reviews_mod
-from foldsift.stats.reviews import (
+from foldsift.tui import store as reviews_mod
+from foldsift.tui.store import (
     DECISIONS,
     REVIEW_SCHEMA,
     Review,
@@ -157,7 +157,7 @@ def test_frame_dtypes_when_empty_and_filled(tmp_path: Path) -> None:
         store.set_flag("b", True)
         store.set_note("a", "n")
         filled = store.frame()
-    expected = pl.Schema(REVIEW_SCHEMA)
+    expected = pl.Schema({"key": pl.String(), **REVIEW_SCHEMA})
     assert empty.height == 0
     assert empty.schema == expected
     assert filled.schema == expected
@@ -376,7 +376,7 @@ def test_default_path_ignores_relative_xdg(tmp_path: Path, monkeypatch: pytest.M
 
 _CHILD = """
 import sys, time
-from foldsift.stats.reviews import ReviewStore
+from foldsift.tui.store import ReviewStore
 
 path, action, key, value = sys.argv[1:5]
 store = ReviewStore(path, "fp-child")

@@ -10,13 +10,16 @@ Sources named beside each check:
   distribution of U enumerated from its definition.
 - Jackknife: leave-one-out medians by brute force (np.delete + np.median).
 - BCa: Efron & Tibshirani, An Introduction to the Bootstrap (1993), ch. 14, and
-  scipy.stats.bootstrap(method="BCa") as an independent implementation.
+  scipy.stats.bootstrap(method="BCa") as an independent implementation; on tied count data
+  a brute-force bootstrap (real resamples, np.median) with the acceleration of eq. 14.15
+  worked out in exact rational arithmetic.
 """
 
 from __future__ import annotations
 
 import itertools
 import math
+from fractions import Fraction
 
 import numpy as np
 import polars as pl
@@ -206,6 +209,141 @@ def test_bca_reduces_to_percentile_without_bias_or_skew():
     jackknife = np.array([9.9, 10.0, 10.1, 9.8, 10.2])
     low, high = robust.bca_interval(estimate, replicates, jackknife, 0.95)
     np.testing.assert_allclose([low, high], np.quantile(replicates, [0.025, 0.975]), rtol=1e-14)
+
+
+# ---------------------------------------------------------------- BCa on tied count data
+
+# Small invented count samples with many ties. Every leave-one-out median of TIED_A is 14
+# and of TIED_B is 5; those of UNEVEN take two values, 16 (5 times) and 15.5 (6 times).
+TIED_A = np.array([10, 7, 20, 14, 14, 12, 10, 23, 17, 20, 14, 13], dtype=float)
+TIED_B = np.array([3, 5, 12, 6, 4, 3, 5, 5, 5, 5, 2, 4], dtype=float)
+UNEVEN = np.array([9, 15, 22, 11, 16, 13, 18, 16, 19, 24, 8], dtype=float)
+
+
+def _brute_jackknife(reference: np.ndarray, other: np.ndarray) -> list[np.ndarray]:
+    """Leave-one-out values of median(other) / median(reference), leaving one value out of
+    either sample (np.delete + np.median, from the definition)."""
+    median_ref, median_other = np.median(reference), np.median(other)
+    leave_ref = [np.median(np.delete(reference, i)) for i in range(reference.size)]
+    leave_other = [np.median(np.delete(other, i)) for i in range(other.size)]
+    return [median_other / np.array(leave_ref), np.array(leave_other) / median_ref]
+
+
+def _textbook_acceleration(jackknife: list[np.ndarray]) -> float:
+    """Efron & Tibshirani (1993) eq. 14.15 per sample, summed over samples as
+    scipy.stats.bootstrap does: U_ji = (n_j - 1)(mean_j - theta_ji),
+    a = sum U^3 / n_j^3 / (6 (sum U^2 / n_j^2)^(3/2)); worked out exactly on the float
+    values (Fraction) so no rounding enters before the final division."""
+    cubes = squares = Fraction(0)
+    for values in jackknife:
+        exact = [Fraction(float(v)) for v in values]
+        n = len(exact)
+        mean = sum(exact, Fraction(0)) / n
+        influence = [(n - 1) * (mean - v) for v in exact]
+        cubes += sum((u**3 for u in influence), Fraction(0)) / n**3
+        squares += sum((u**2 for u in influence), Fraction(0)) / n**2
+    if squares == 0:
+        return 0.0
+    return float(cubes) / (6 * float(squares) ** 1.5)
+
+
+def _brute_medians(values: np.ndarray, resamples: int, rng: np.random.Generator) -> np.ndarray:
+    """Medians of real bootstrap resamples (numpy draws with replacement)."""
+    return np.median(values[rng.integers(0, values.size, (resamples, values.size))], axis=1)
+
+
+def _brute_bca(estimate, replicates, acceleration, confidence):
+    """BCa ends (Efron & Tibshirani 1993, eq. 14.10-14.14): z0 from the share of replicates
+    below the estimate, ties counted half (scipy.stats.percentileofscore, kind="mean");
+    alpha_i = Phi(z0 + (z0 + z_i) / (1 - a (z0 + z_i))); ends are those quantiles of the
+    replicates (np.quantile, linear, as scipy.stats.bootstrap uses)."""
+    z0 = sps.norm.ppf(sps.percentileofscore(replicates, estimate, kind="mean") / 100)
+    ends = []
+    for z in sps.norm.ppf([(1 - confidence) / 2, (1 + confidence) / 2]):
+        ends.append(
+            np.quantile(replicates, sps.norm.cdf(z0 + (z0 + z) / (1 - acceleration * (z0 + z))))
+        )
+    return ends
+
+
+@pytest.mark.parametrize(("reference", "other"), [(TIED_A, TIED_B), (TIED_B, TIED_A)])
+def test_bca_acceleration_is_exactly_zero_when_jackknife_values_are_equal(reference, other):
+    """When every leave-one-out median is the same, every influence value is 0 and so is
+    the acceleration (Efron & Tibshirani 1993, eq. 14.15), exactly, not rounding noise."""
+    jackknife = _brute_jackknife(reference, other)
+    assert all(np.unique(values).size == 1 for values in jackknife)
+    assert _textbook_acceleration(jackknife) == 0.0
+    assert robust.bca_acceleration(jackknife) == 0.0
+    # the module's own fast jackknife gives the same equal values
+    fast = [np.median(other) / robust.jackknife_medians(reference)]
+    assert robust.bca_acceleration(fast) == 0.0
+
+
+@pytest.mark.parametrize("value", [0.1, 5 / 14, 2.8, 1e-300, 7.3e12])
+@pytest.mark.parametrize("n", [3, 11, 12, 49, 1000])
+def test_bca_acceleration_zero_for_constant_jackknife_of_any_size(value, n):
+    """Equal jackknife values have no influence (eq. 14.15): 0.0 for values whose float mean
+    is not exact (0.1 and 5/14 repeated)."""
+    assert robust.bca_acceleration([np.full(n, value)]) == 0.0
+    assert robust.bca_acceleration([np.full(n, value), np.full(n + 1, 2 * value)]) == 0.0
+
+
+@pytest.mark.parametrize(
+    ("reference", "other"),
+    [(TIED_A, TIED_B), (TIED_B, TIED_A), (TIED_A, UNEVEN), (UNEVEN, TIED_B)],
+)
+@pytest.mark.parametrize("confidence", [0.95, 0.90])
+def test_bca_on_tied_counts_matches_brute_force_bootstrap(reference, other, confidence):
+    """Brute force: real resamples of each sample (numpy), the ratio of their medians, the
+    jackknife from np.median of each leave-one-out sample, the acceleration of eq. 14.15
+    in exact arithmetic and the BCa ends of Efron & Tibshirani (1993) ch. 14. The module,
+    given the same replicates, gives the same interval."""
+    rng = np.random.default_rng(reference.size * 100 + other.size)
+    reps_ref = _brute_medians(reference, 2000, rng)
+    reps_other = _brute_medians(other, 2000, rng)
+    estimate = np.median(other) / np.median(reference)
+    jackknife = _brute_jackknife(reference, other)
+    acceleration = _textbook_acceleration(jackknife)
+    assert robust.bca_acceleration(jackknife) == pytest.approx(acceleration, rel=1e-12, abs=0)
+    expected = _brute_bca(estimate, reps_other / reps_ref, acceleration, confidence)
+    share_below = np.mean(reps_other / reps_ref < estimate)
+    assert 0 < share_below < 1  # the module's clamp of z0 at the extremes is not in play
+    check = robust.robust_check(
+        reference, other, confidence=confidence, replicates_a=reps_ref, replicates_b=reps_other
+    )
+    assert check.median_ratio == estimate
+    np.testing.assert_allclose(
+        [check.median_ratio_ci_low, check.median_ratio_ci_high], expected, rtol=1e-12
+    )
+
+
+@pytest.mark.parametrize(("reference", "other"), [(TIED_A, UNEVEN), (UNEVEN, TIED_A)])
+def test_bca_acceleration_with_unequal_jackknife_values(reference, other):
+    """Where the leave-one-out medians differ the acceleration is not 0 and equals eq. 14.15
+    worked out by hand (exactly); the whole interval equals scipy.stats.bootstrap's BCa
+    from its own replicates (independent implementation)."""
+    jackknife = _brute_jackknife(reference, other)
+    assert any(np.unique(values).size > 1 for values in jackknife)
+    acceleration = _textbook_acceleration(jackknife)
+    assert acceleration != 0.0
+    assert robust.bca_acceleration(jackknife) == pytest.approx(acceleration, rel=1e-12, abs=0)
+
+    def ratio(x, y, axis=-1):
+        return np.median(y, axis=axis) / np.median(x, axis=axis)
+
+    result = sps.bootstrap(
+        (reference, other),
+        ratio,
+        method="BCa",
+        n_resamples=3000,
+        rng=np.random.default_rng(3),
+        vectorized=True,
+    )
+    low, high = robust.bca_interval(
+        float(ratio(reference, other)), result.bootstrap_distribution, jackknife, 0.95
+    )
+    expected = result.confidence_interval
+    np.testing.assert_allclose([low, high], [expected.low, expected.high], rtol=1e-12)
 
 
 # ---------------------------------------------------------------- robust_all on a table

@@ -21,6 +21,7 @@ import polars as pl
 import pytest
 
 from foldsift.demo.generate import demo_path
+from foldsift.stats.columns import COMPARISON_SCHEMA
 from foldsift.stats.load import InputError, load_table
 from foldsift.stats.policy import ValuePolicy
 from foldsift.stats.scan import ScanSettings, run_scan
@@ -57,10 +58,11 @@ def _sql_summary(path: Path) -> Path:
     ("test", "low", "high"), [("pooled", 0.59813, 0.69195), ("welch", 0.60576, 0.68324)]
 )
 def test_sql_group_by_summary_reproduces_the_reference(tmp_path, test, low, high):
-    comparisons, metadata = scan_summary_table(
-        _sql_summary(tmp_path / "s.csv"), ScanSettings(test=test)
-    )
-    row = comparisons.row(0, named=True)
+    summary = scan_summary_table(_sql_summary(tmp_path / "s.csv"), ScanSettings(test=test))
+    metadata = summary.metadata()
+    assert summary.values is None, "a summary table has no raw values"
+    assert summary.comparisons.schema == COMPARISON_SCHEMA, "the same result type as a raw scan"
+    row = summary.comparisons.row(0, named=True)
     assert (row["level_a"], row["level_b"]) == ("japan", "us")
     assert row["ratio"] == pytest.approx(0.64333, abs=5e-6)
     assert row["ci_low"] == pytest.approx(low, abs=5e-6)
@@ -79,15 +81,18 @@ def test_pandas_summary_of_the_demo_matches_the_raw_scan(tmp_path):
     values (below-detection entries as DL/2, the policy the raw scan uses here)."""
     settings = ScanSettings(policy=ValuePolicy(censored="half-dl"))
     result = run_scan(load_table(demo_path()), settings)
-    # column by column: DataFrame.to_pandas would need pyarrow, which the project does not use
-    used = pd.DataFrame({name: result.used[name].to_numpy() for name in result.used.columns})
+    assert result.values is not None
     parts = []
-    for grouping in result.table.groupings:
-        for outcome in result.table.outcomes:
-            logs = np.log(used[outcome + "__used"])
-            frame = pd.DataFrame(
-                {"level": used[grouping], "log": logs, "value": used[outcome + "__used"]}
-            )
+    for grouping in result.source.groupings:
+        for outcome in result.source.outcomes:
+            # the usable values of each group, as the scan saw them; summarised by pandas
+            groups = {
+                level: result.values.values((grouping, None, None, level, outcome))
+                for level in result.summaries.filter(pl.col("grouping") == grouping)["level"]
+            }
+            values = np.concatenate(list(groups.values()))
+            levels = np.repeat(list(groups), [v.size for v in groups.values()])
+            frame = pd.DataFrame({"level": levels, "log": np.log(values), "value": values})
             summary = frame.dropna().groupby("level").agg(
                 n=("log", "size"), mean_log=("log", "mean"), sd_log=("log", "std"),
                 median=("value", "median"),
@@ -96,7 +101,7 @@ def test_pandas_summary_of_the_demo_matches_the_raw_scan(tmp_path):
             parts.append(summary)
     path = tmp_path / "demo_summary.csv"
     pd.concat(parts).to_csv(path, index=False)
-    comparisons, _ = scan_summary_table(path, settings)
+    comparisons = scan_summary_table(path, settings).comparisons
     raw = result.comparisons
     assert comparisons.height == raw.height == 330
     got = comparisons.sort("key")

@@ -20,9 +20,9 @@ from textual.widgets import Footer, Input, Static
 from textual.worker import get_current_worker
 
 from foldsift.stats.equivalence import BAND_CLASSES
-from foldsift.stats.export import join_reviews, write_export
+from foldsift.tui.export import join_reviews, write_export
 from foldsift.stats.load import InputError, load_table
-from foldsift.stats.reviews import ReviewStore, ReviewStoreError, default_review_path
+from foldsift.tui.store import ReviewStore, ReviewStoreError, default_review_path
 from foldsift.stats.robust import DEFAULT_RESAMPLES, GroupValues, RobustCheck, robust_check
 from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
 from foldsift.stats.sentence import readable_outcome, sentence_column

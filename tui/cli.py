@@ -7,11 +7,19 @@ import sys
 from pathlib import Path
 
 from foldsift.stats.equivalence import DEFAULT_BAND, parse_band
-from foldsift.stats.load import InputError, Table, load_table
-from foldsift.stats.multiplicity import FAMILIES
-from foldsift.stats.policy import CENSORED_POLICIES, NONPOSITIVE_POLICIES, ValuePolicy
-from foldsift.stats.scan import PAIRS, ScanResult, ScanSettings, run_scan
-from foldsift.stats.ttest import TESTS
+from foldsift.stats.load import InputError
+from foldsift.stats.policy import ValuePolicy
+from foldsift.stats.robust import DEFAULT_RESAMPLES
+from foldsift.stats.scan import Reference, ScanResult, ScanSettings
+from foldsift.stats.vocabulary import (
+    CENSORED_POLICIES,
+    FAMILIES,
+    NONPOSITIVE_POLICIES,
+    PAIRS,
+    TESTS,
+)
+
+from .session import SELECTIONS, ReviewSession, Selection, SessionOptions, scan
 
 EXIT_BAD_INPUT = 2
 
@@ -31,6 +39,13 @@ def _confidence(text: str) -> float:
     if not 0.5 <= value < 1:
         raise argparse.ArgumentTypeError(f"{text}: give a level between 0.5 and 1, e.g. 0.95")
     return value
+
+
+def _reference(text: str) -> Reference:
+    try:
+        return Reference.parse(text)
+    except ValueError as error:
+        raise argparse.ArgumentTypeError(str(error)) from None
 
 
 def _resamples(text: str) -> int:
@@ -78,6 +93,7 @@ def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = T
     method.add_argument(
         "--reference",
         action="append",
+        type=_reference,
         default=[],
         metavar="LEVEL",
         help="reference level (denominator) for --pairs reference; LEVEL or GROUPING=LEVEL (repeat)",
@@ -134,7 +150,7 @@ def settings_from(args: argparse.Namespace) -> ScanSettings:
         confidence=args.confidence,
         policy=ValuePolicy(nonpositive=args.nonpositive, censored=args.censored),
         family=args.family,
-        band=tuple(args.band),
+        band=args.band,
         target_ratio=args.target_ratio,
         within=args.within,
     )
@@ -142,15 +158,24 @@ def settings_from(args: argparse.Namespace) -> ScanSettings:
 
 def data_path(args: argparse.Namespace) -> Path:
     if args.data is not None:
-        return args.data
+        path: Path = args.data
+        return path
     from foldsift.demo.generate import demo_path
 
     return demo_path()
 
 
-def load_and_scan(args: argparse.Namespace) -> ScanResult:
-    table: Table = load_table(data_path(args), groupings=args.group, outcomes=args.outcome)
-    return run_scan(table, settings_from(args))
+def options_from(args: argparse.Namespace) -> SessionOptions:
+    """The typed options of a session from the parsed command line."""
+    return SessionOptions(
+        data_path=data_path(args),
+        settings=settings_from(args),
+        groupings=tuple(args.group) if args.group else None,
+        outcomes=tuple(args.outcome) if args.outcome else None,
+        summary=bool(getattr(args, "summary", False)),
+        reviews_path=getattr(args, "reviews", None),
+        resamples=getattr(args, "resamples", DEFAULT_RESAMPLES),
+    )
 
 
 def _fail(message: str) -> int:
@@ -167,58 +192,61 @@ def _check_out(path: Path | None) -> None:
         raise InputError(f"{path}: is a folder; give a file name for the CSV")
 
 
-def command_scan(args: argparse.Namespace) -> int:
-    from foldsift.stats.robust import robust_all
-    from foldsift.stats.sentence import sentence_column
-
-    _check_out(args.out)
-    if args.summary:
-        return _scan_summary(args)
-    result = load_and_scan(args)
-    table = result.table
+def _describe(result: ScanResult) -> None:
+    source = result.source
+    if source.kind == "summary table":
+        print(
+            f"foldsift: {source.name}: summary table, {len(source.groupings)} grouping(s), "
+            f"{len(source.outcomes)} outcome(s), {result.comparisons.height} comparisons "
+            "(medians, normality checks and cross-checks need raw values)",
+            file=sys.stderr,
+        )
+        return
     print(
-        f"foldsift: {table.name}: {len(table.groupings)} grouping column(s) "
-        f"({', '.join(table.groupings)}), {len(table.outcomes)} outcome(s), "
+        f"foldsift: {source.name}: {len(source.groupings)} grouping column(s) "
+        f"({', '.join(source.groupings)}), {len(source.outcomes)} outcome(s), "
         f"{result.comparisons.height} comparisons; {result.settings.policy.describe()}",
         file=sys.stderr,
     )
-    for name, count in table.unparsed.items():
+    for name, count in source.unparsed.items():
         print(
             f"foldsift: warning: {name}: {count} entries were not numbers and were read as missing",
             file=sys.stderr,
         )
+
+
+def command_scan(args: argparse.Namespace) -> int:
+    from foldsift.stats.columns import csv_ready
+    from foldsift.stats.robust import robust_all
+    from foldsift.stats.sentence import sentence_column
+
+    from .export import write_export
+
+    _check_out(args.out)
+    options = options_from(args)
+    if args.robust and options.summary:
+        return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
+    result = scan(options)
+    _describe(result)
     comparisons = result.comparisons
     if args.robust:
         comparisons = robust_all(result, resamples=args.resamples, progress=_progress_bar)
         print(file=sys.stderr)
-    return _write_scan(comparisons.with_columns(sentence_column(comparisons)), args.out)
-
-
-def _write_scan(comparisons, out: Path | None) -> int:
-    if out is None:
-        sys.stdout.write(comparisons.write_csv())
-    else:
-        comparisons.write_csv(out)
-        print(f"foldsift: wrote {comparisons.height} rows to {out}", file=sys.stderr)
-    return 0
-
-
-def _scan_summary(args: argparse.Namespace) -> int:
-    from foldsift.stats.sentence import sentence_column
-    from foldsift.stats.summary_input import scan_summary_table
-
-    if args.robust:
-        return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
-    if args.group or args.outcome:
-        return _fail(f"{args.data}: a summary table names its groupings and outcomes itself")
-    comparisons, metadata = scan_summary_table(args.data, settings_from(args))
+    comparisons = comparisons.with_columns(sentence_column(comparisons))
+    if args.out is None:
+        sys.stdout.write(csv_ready(comparisons).write_csv())
+        return 0
+    metadata = result.metadata() | {"rows_chosen": "all", "cross_checks": bool(args.robust)}
+    try:
+        write_export(comparisons, args.out, metadata, overwrite=True)
+    except OSError as error:
+        return _fail(f"{args.out}: cannot be written ({error.strerror or error})")
     print(
-        f"foldsift: {args.data.name}: summary table, {len(metadata['groupings'])} grouping(s), "
-        f"{len(metadata['outcomes'])} outcome(s), {comparisons.height} comparisons "
-        "(medians, normality checks and cross-checks need raw values)",
+        f"foldsift: wrote {comparisons.height} rows to {args.out} "
+        f"(settings in {args.out}.settings.json)",
         file=sys.stderr,
     )
-    return _write_scan(comparisons.with_columns(sentence_column(comparisons)), args.out)
+    return 0
 
 
 def _progress_bar(done: int, total: int) -> None:
@@ -237,39 +265,51 @@ def _progress_bar(done: int, total: int) -> None:
 
 
 def command_review(args: argparse.Namespace) -> int:
-    from foldsift.tui.app import make_app
+    from foldsift.tui.app import FoldsiftApp
 
-    app = make_app(data_path(args), args, reviews=args.reviews)
+    app = FoldsiftApp(options_from(args), robust_on_open=args.robust)
     app.run()
     if app.error_text:
         print(f"foldsift: {app.error_text}", file=sys.stderr)
     return app.return_code or 0
 
 
-def command_export(args: argparse.Namespace) -> int:
-    from foldsift.stats.export import join_reviews, select_rows, write_export
-    from foldsift.stats.reviews import ReviewStore, default_review_path
-    from foldsift.stats.sentence import sentence_column
+def _export_selection(args: argparse.Namespace) -> Selection:
+    if args.all:
+        return "all"
+    if args.rows is not None:
+        rows: Selection = args.rows
+        return rows
+    return "shown" if args.filter else "flagged"
 
+
+def command_export(args: argparse.Namespace) -> int:
     _check_out(args.out)
-    result = load_and_scan(args)
-    path = args.reviews or default_review_path(data_path(args))
-    if not Path(path).exists():
-        return _fail(f"{path}: no review file yet; review the data first or give --reviews PATH")
-    with ReviewStore(path, result.table.fingerprint) as store:
-        joined = join_reviews(result.comparisons, store.frame())
-    rows = select_rows(joined, "all" if args.all else "flagged")
-    rows = rows.with_columns(sentence_column(rows))
-    settings = result.metadata() | {
-        "rows_chosen": "all" if args.all else "flagged",
-        "reviews": str(path),
-    }
+    options = options_from(args)
+    if not options.review_file.exists():
+        return _fail(
+            f"{options.review_file}: no review file yet; review the data first or give --reviews PATH"
+        )
+    which = _export_selection(args)
+    session = ReviewSession.open(options)
     try:
-        written = write_export(rows, args.out, settings, overwrite=args.overwrite)
-    except FileExistsError:
-        return _fail(f"{args.out} exists; add --overwrite to replace it")
+        error = session.set_filter(args.filter or "")
+        if error:
+            return _fail(f"--filter: {error}")
+        if args.robust:
+            if not session.can_cross_check:
+                return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
+            session.cross_check(session.selection(which), progress=_progress_bar)
+            print(file=sys.stderr)
+        try:
+            report = session.export(args.out, which, overwrite=args.overwrite)
+        except FileExistsError:
+            return _fail(f"{args.out} exists; add --overwrite to replace it")
+    finally:
+        session.close()
     print(
-        f"foldsift: wrote {rows.height} rows to {written} (settings in {written}.settings.json)",
+        f"foldsift: wrote {report.rows} rows to {report.path} "
+        f"(settings in {report.path}.settings.json)",
         file=sys.stderr,
     )
     return 0
@@ -306,9 +346,9 @@ def build_parser() -> argparse.ArgumentParser:
     scan.add_argument(
         "--resamples",
         type=_resamples,
-        default=2000,
+        default=DEFAULT_RESAMPLES,
         metavar="N",
-        help="bootstrap resamples (default 2000)",
+        help=f"bootstrap resamples (default {DEFAULT_RESAMPLES})",
     )
     review = commands.add_parser("review", help="open the full-screen review app")
     add_scan_options(review, data_required=False)
@@ -325,7 +365,29 @@ def build_parser() -> argparse.ArgumentParser:
     export.add_argument(
         "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
     )
-    export.add_argument("--all", action="store_true", help="all rows, not only flagged ones")
+    export.add_argument(
+        "--rows",
+        choices=SELECTIONS,
+        help="which rows: flagged (default), decided, shown (those --filter keeps) or all",
+    )
+    export.add_argument("--all", action="store_true", help="all rows (the same as --rows all)")
+    export.add_argument(
+        "--filter",
+        metavar="WORDS",
+        help="the review list's filter words, e.g. 'copper q<0.05 -warned' (implies --rows shown)",
+    )
+    export.add_argument(
+        "--robust",
+        action="store_true",
+        help="cross-check the exported rows first (bootstrap and Hodges-Lehmann)",
+    )
+    export.add_argument(
+        "--resamples",
+        type=_resamples,
+        default=DEFAULT_RESAMPLES,
+        metavar="N",
+        help=f"bootstrap resamples (default {DEFAULT_RESAMPLES})",
+    )
     export.add_argument("--out", type=Path, required=True, metavar="FILE.csv")
     export.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
     return parser

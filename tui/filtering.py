@@ -22,9 +22,10 @@ from collections.abc import Collection
 
 import polars as pl
 
+from foldsift.stats import columns as col
 from foldsift.stats.diagnostics import WARNINGS
 from foldsift.stats.equivalence import BAND_CLASSES
-from foldsift.stats.reviews import DECISIONS
+from foldsift.stats.vocabulary import DECISIONS
 
 NUMERIC_FIELDS = {
     "q": "q_bh",
@@ -32,7 +33,7 @@ NUMERIC_FIELDS = {
     "holm": "p_holm",
     "ratio": "ratio",
     "change": "percent_change",
-    "n": "n_min",
+    "n": "n_min",  # the smaller group's n
     "fold": "ci_fold",
 }
 _CONDITION = re.compile(r"^(?P<field>[a-z]+)\s*(?P<op><=|>=|<|>|=)\s*(?P<value>[-+0-9.eE]+)$")
@@ -59,62 +60,89 @@ def _band(text: str, word: str) -> tuple[float, float]:
     return low, high
 
 
-def _word(word: str, columns: Collection[str] = ()) -> pl.Expr:
-    lowered = word.lower()
-    match = _CONDITION.match(lowered)
-    if match:
-        field = match["field"]
-        if field not in NUMERIC_FIELDS:
-            raise FilterError(
-                f"{word!r}: unknown field {field!r}; use one of {', '.join(NUMERIC_FIELDS)}"
-            )
-        try:
-            value = float(match["value"])
-        except ValueError:
-            raise FilterError(f"{word!r}: {match['value']!r} is not a number") from None
-        column = pl.min_horizontal("n_a", "n_b") if field == "n" else pl.col(NUMERIC_FIELDS[field])
-        return _OPERATORS[match["op"]](column, value).fill_null(False)
-    if lowered.startswith(("outside:", "inside:")):
-        kind, _, text = lowered.partition(":")
+def _condition(word: str, match: re.Match[str]) -> pl.Expr:
+    """``q<0.05``, ``ratio>2``, ``n>=10``: a numeric condition."""
+    field = match["field"]
+    if field not in NUMERIC_FIELDS:
+        raise FilterError(
+            f"{word!r}: unknown field {field!r}; use one of {', '.join(NUMERIC_FIELDS)}"
+        )
+    try:
+        value = float(match["value"])
+    except ValueError:
+        raise FilterError(f"{word!r}: {match['value']!r} is not a number") from None
+    column = (
+        pl.min_horizontal(col.N_A, col.N_B) if field == "n" else pl.col(NUMERIC_FIELDS[field])
+    )
+    return _OPERATORS[match["op"]](column, value).fill_null(False)
+
+
+def _prefixed(word: str, lowered: str) -> pl.Expr | None:
+    """``outside:``, ``inside:``, ``warn:`` and ``class:`` words; None for other words."""
+    kind, colon, text = lowered.partition(":")
+    if not colon:
+        return None
+    if kind in ("outside", "inside"):
         low, high = _band(text, word)
-        outside = (pl.col("ratio") < low) | (pl.col("ratio") > high)
+        outside = (pl.col(col.RATIO) < low) | (pl.col(col.RATIO) > high)
         return (outside if kind == "outside" else ~outside).fill_null(False)
-    if lowered.startswith("warn:"):
-        name = lowered[5:]
-        if name not in WARNINGS:
+    if kind == "warn":
+        if text not in WARNINGS:
             # A misspelt name would otherwise match nothing and look like "no such warnings".
             raise FilterError(f"{word!r}: warnings are {', '.join(WARNINGS)}")
-        return pl.col("warnings").str.split(";").list.contains(name).fill_null(False)
-    if lowered.startswith("class:"):
-        name = lowered[6:]
-        if name not in BAND_CLASSES:
+        return pl.col(col.WARNINGS).list.contains(pl.lit(text)).fill_null(False)
+    if kind == "class":
+        if text not in BAND_CLASSES:
             raise FilterError(f"{word!r}: classes are {', '.join(BAND_CLASSES)}")
-        return pl.col("band_class") == name
+        return (pl.col(col.BAND_CLASS).cast(pl.String) == text).fill_null(False)
+    return None
+
+
+def _state(lowered: str) -> pl.Expr | None:
+    """Words about warnings, reviews and classes (``warned``, ``flagged``, ``keep``, ...)."""
     simple = {
-        "warned": pl.col("warnings") != "",
-        "clean": pl.col("warnings") == "",
-        "flagged": pl.col("flagged"),
-        "unflagged": ~pl.col("flagged"),
-        "undecided": pl.col("decision").is_null(),
-        "noted": pl.col("note") != "",
-        "earlier": pl.col("on_earlier_data"),
+        "warned": pl.col(col.WARNINGS).list.len() > 0,
+        "clean": pl.col(col.WARNINGS).list.len() == 0,
+        "flagged": pl.col(col.FLAGGED),
+        "unflagged": ~pl.col(col.FLAGGED),
+        "undecided": pl.col(col.DECISION).is_null(),
+        "noted": pl.col(col.NOTE) != "",
+        "earlier": pl.col(col.ON_EARLIER_DATA),
     }
     if lowered in simple:
         return simple[lowered].fill_null(False)
     if lowered in BAND_CLASSES:
-        return pl.col("band_class") == lowered
+        return (pl.col(col.BAND_CLASS).cast(pl.String) == lowered).fill_null(False)
     if lowered in DECISIONS:
-        return (pl.col("decision") == lowered).fill_null(False)
+        return (pl.col(col.DECISION).cast(pl.String) == lowered).fill_null(False)
+    return None
+
+
+def _text(lowered: str, columns: Collection[str]) -> pl.Expr:
+    """A plain word: text search in the outcome, grouping, stratum and level names."""
+    names = [col.OUTCOME, col.GROUPING, col.STRATUM, col.LEVEL_A, col.LEVEL_B]
+    if col.OUTCOME_LABEL in columns:
+        names.insert(0, col.OUTCOME_LABEL)
+    return pl.any_horizontal(
+        pl.col(name).str.to_lowercase().str.contains(lowered, literal=True).fill_null(False)
+        for name in names
+        if name in columns or not columns
+    )
+
+
+def _word(word: str, columns: Collection[str] = ()) -> pl.Expr:
+    lowered = word.lower()
+    match = _CONDITION.match(lowered)
+    if match:
+        return _condition(word, match)
+    expression = _prefixed(word, lowered)
+    if expression is None:
+        expression = _state(lowered)
+    if expression is not None:
+        return expression
     if any(symbol in lowered for symbol in "<>="):
         raise FilterError(f"{word!r}: write conditions like q<0.05 or ratio>2")
-    label = pl.col("outcome_label") if "outcome_label" in columns else pl.col("outcome")
-    return (
-        label.str.to_lowercase().str.contains(lowered, literal=True)
-        | pl.col("outcome").str.to_lowercase().str.contains(lowered, literal=True)
-        | pl.col("grouping").str.to_lowercase().str.contains(lowered, literal=True)
-        | pl.col("level_a").str.to_lowercase().str.contains(lowered, literal=True)
-        | pl.col("level_b").str.to_lowercase().str.contains(lowered, literal=True)
-    )
+    return _text(lowered, columns)
 
 
 def parse_filter(text: str, columns: Collection[str] = ()) -> pl.Expr | None:

@@ -20,6 +20,9 @@ from types import TracebackType
 
 import polars as pl
 
+from foldsift.stats.columns import REVIEW_SCHEMA
+from foldsift.stats.vocabulary import DECISIONS, Decision
+
 __all__ = [
     "DECISIONS",
     "REVIEW_SCHEMA",
@@ -30,20 +33,8 @@ __all__ = [
     "default_review_path",
 ]
 
-DECISIONS: tuple[str, ...] = ("keep", "doubt", "drop")
 
 SCHEMA_VERSION = 1
-
-# Column order and dtypes of ReviewStore.frame(); fixed so an empty store still joins cleanly.
-REVIEW_SCHEMA: dict[str, pl.DataType] = {
-    "key": pl.Utf8(),
-    "flagged": pl.Boolean(),
-    "decision": pl.Utf8(),
-    "note": pl.Utf8(),
-    "review_fingerprint": pl.Utf8(),
-    "updated_at": pl.Utf8(),
-    "on_earlier_data": pl.Boolean(),
-}
 
 _REVIEW_COLUMNS = ("key", "flagged", "decision", "note", "fingerprint", "updated_at")
 
@@ -79,7 +70,7 @@ ON CONFLICT(key) DO UPDATE SET
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 
 # (flagged, decision, note): the reviewer-editable part of a row.
-_Fields = tuple[bool, str | None, str]
+_Fields = tuple[bool, Decision | None, str]
 
 
 class ReviewStoreError(ValueError):
@@ -92,7 +83,7 @@ class Review:
 
     key: str
     flagged: bool
-    decision: str | None
+    decision: Decision | None
     note: str
     fingerprint: str
     updated_at: str
@@ -139,12 +130,13 @@ class ReviewStore:
         flagged, _, _ = self._modify(key, lambda f, decision, note: (not f, decision, note))
         return flagged
 
-    def set_decision(self, key: str, decision: str | None) -> None:
+    def set_decision(self, key: str, decision: Decision | None) -> None:
         """Set the decision for ``key`` to one of DECISIONS, or None to clear it."""
         if decision is not None and decision not in DECISIONS:
             choices = ", ".join(DECISIONS)
             raise ValueError(f"unknown decision {decision!r}; use one of {choices} or None")
-        self._modify(key, lambda f, _d, note: (f, decision, note))
+        chosen = decision
+        self._modify(key, lambda f, _d, note: (f, chosen, note))
 
     def set_note(self, key: str, text: str) -> None:
         """Replace the note of ``key``; an empty string removes it."""
@@ -186,7 +178,7 @@ class ReviewStore:
                 "updated_at": [r.updated_at for r in reviews],
                 "on_earlier_data": [r.on_earlier_data for r in reviews],
             },
-            schema=REVIEW_SCHEMA,
+            schema={"key": pl.String(), **REVIEW_SCHEMA},
         )
 
     # -- lifetime ------------------------------------------------------------------------
@@ -235,7 +227,9 @@ class ReviewStore:
                 raise ReviewStoreError(f"{self._path}: could not save the change ({exc})") from exc
             raise
 
-    def _modify(self, key: str, change: Callable[[bool, str | None, str], _Fields]) -> _Fields:
+    def _modify(
+        self, key: str, change: Callable[[bool, Decision | None, str], _Fields]
+    ) -> _Fields:
         _check_key(key)
         with self._transaction() as conn:
             row = conn.execute(
@@ -257,7 +251,7 @@ class ReviewStore:
         return Review(
             key=key,
             flagged=bool(flagged),
-            decision=decision,
+            decision=decision if decision in DECISIONS else None,
             note=note,
             fingerprint=fingerprint,
             updated_at=updated_at,

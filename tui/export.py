@@ -9,13 +9,15 @@ from __future__ import annotations
 import contextlib
 import json
 import os
-import tempfile
+import secrets
 from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, BinaryIO
 
 import polars as pl
+
+from foldsift.stats.columns import csv_ready
 
 __all__ = ["SELECTIONS", "join_reviews", "select_rows", "settings_path", "write_export"]
 
@@ -75,6 +77,7 @@ def write_export(
     """
     path = Path(path).expanduser()
     sidecar = settings_path(path)
+    frame = csv_ready(frame)
     _reject_nested(frame)
     if not overwrite:
         for target in (path, sidecar):
@@ -131,15 +134,26 @@ def _json_default(value: object) -> object:
     raise TypeError(f"setting value {value!r} of type {type(value).__name__} is not JSON-ready")
 
 
+def _create_temp(target: Path) -> tuple[int, Path]:
+    """A new, empty temporary file beside ``target``, readable as the user's umask allows.
+
+    Same folder as the target, so os.replace is a rename within one filesystem. Created
+    with mode 0o666 so the kernel applies the umask (an export is for colleagues; mkstemp
+    would make it private), without changing the process-wide umask while other threads
+    run."""
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0)
+    for _ in range(100):
+        tmp = target.with_name(f".{target.name}.{secrets.token_hex(6)}.tmp")
+        try:
+            return os.open(tmp, flags, 0o666), tmp
+        except FileExistsError:
+            continue
+    raise FileExistsError(f"{target.parent}: could not create a temporary file for {target.name}")
+
+
 def _write_temp(target: Path, write: Callable[[BinaryIO], object]) -> Path:
     """Write into a new temporary file beside ``target`` and fsync it; return its path."""
-    # Same folder as the target, so os.replace is a rename within one filesystem.
-    fd, name = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".tmp")
-    tmp = Path(name)
-    # mkstemp makes the file private (0600); an export is for colleagues: use the umask.
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
+    fd, tmp = _create_temp(target)
     try:
         with os.fdopen(fd, "wb") as fh:
             write(fh)

@@ -1,0 +1,306 @@
+"""The review session: one scan, its review store, its cross-checks, the current view (filter
+and sort) and the export of a selection. No Textual: the app and ``foldsift export`` both go
+through it, and tests use it directly."""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal, get_args
+
+import numpy as np
+import polars as pl
+
+from foldsift.stats import columns as col
+from foldsift.stats.columns import (
+    EXPORT_SCHEMA,
+    LIST_SCHEMA,
+    ReviewedRow,
+    reviewed_row,
+)
+from foldsift.stats.load import InputError, load_table
+from foldsift.stats.robust import (
+    DEFAULT_RESAMPLES,
+    DEFAULT_SEED,
+    CheckJob,
+    CrossChecker,
+    RobustCheck,
+    check_jobs,
+    checks_frame,
+    group_id,
+)
+from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
+from foldsift.stats.sentence import readable_outcome, sentence_column
+from foldsift.stats.vocabulary import Decision
+
+from .export import join_reviews, write_export
+from .filtering import FilterError, parse_filter
+from .store import Review, ReviewStore, default_review_path
+
+#: Which rows an export writes: flagged ones, ones with a decision, the ones the filter
+#: shows, or all of them.
+Selection = Literal["flagged", "decided", "shown", "all"]
+SELECTIONS: tuple[Selection, ...] = get_args(Selection)
+
+#: The list's order when it opens, and the order of every export: smallest q first.
+DEFAULT_SORT = col.Q_BH
+
+
+@dataclass(frozen=True)
+class SessionOptions:
+    """Everything needed to open a session, as the command line gives it."""
+
+    data_path: Path
+    settings: ScanSettings = field(default_factory=ScanSettings)
+    groupings: tuple[str, ...] | None = None
+    outcomes: tuple[str, ...] | None = None
+    summary: bool = False
+    reviews_path: Path | None = None
+    resamples: int = DEFAULT_RESAMPLES
+    seed: int = DEFAULT_SEED
+
+    @property
+    def review_file(self) -> Path:
+        return self.reviews_path or default_review_path(self.data_path)
+
+
+def scan(options: SessionOptions) -> ScanResult:
+    """Load the data and compute every comparison (a raw table or a summary table)."""
+    if options.summary:
+        from foldsift.stats.summary_input import scan_summary_table
+
+        if options.groupings or options.outcomes:
+            raise InputError(
+                f"{options.data_path}: a summary table names its groupings and outcomes itself"
+            )
+        return scan_summary_table(options.data_path, options.settings)
+    table = load_table(options.data_path, groupings=options.groupings, outcomes=options.outcomes)
+    return run_scan(table, options.settings)
+
+
+@dataclass(frozen=True)
+class ExportReport:
+    """What an export wrote."""
+
+    path: Path
+    rows: int
+
+
+def _list_columns(frame: pl.DataFrame, outcomes: Sequence[str]) -> pl.DataFrame:
+    labels = {name: readable_outcome(name) for name in outcomes}
+    return frame.with_columns(
+        pl.col(col.OUTCOME).replace_strict(labels, return_dtype=pl.String).alias(col.OUTCOME_LABEL),
+        pl.col(col.LOG2_RATIO).abs().alias(col.CHANGE_SIZE),
+        pl.min_horizontal(col.N_A, col.N_B).alias(col.N_MIN),
+        pl.col(col.WARNINGS).list.len().cast(pl.Int64).alias(col.WARNING_COUNT),
+    )
+
+
+def _review_values(review: Review | None) -> dict[str, Any]:
+    return {
+        col.FLAGGED: review.flagged if review else False,
+        col.DECISION: review.decision if review else None,
+        col.NOTE: review.note if review else "",
+        "review_fingerprint": review.fingerprint if review else None,
+        "updated_at": review.updated_at if review else None,
+        col.ON_EARLIER_DATA: review.on_earlier_data if review else False,
+    }
+
+
+class ReviewSession:
+    """One scan under review: the rows with their reviews, the view, cross-checks, exports."""
+
+    def __init__(self, options: SessionOptions, result: ScanResult, store: ReviewStore) -> None:
+        self.options = options
+        self.result = result
+        self.store = store
+        self.checks: dict[str, RobustCheck] = {}
+        self.filter_text = ""
+        self.filter_error: str | None = None
+        self.sort_on: str = DEFAULT_SORT
+        self.descending = False
+        self._filter: pl.Expr | None = None
+        self._checker = (
+            CrossChecker(
+                result.values.values,
+                confidence=result.settings.confidence,
+                resamples=options.resamples,
+                seed=options.seed,
+            )
+            if result.values is not None
+            else None
+        )
+        joined = join_reviews(result.comparisons, store.frame())
+        self._rows = _list_columns(joined, result.source.outcomes)
+
+    @classmethod
+    def open(cls, options: SessionOptions) -> ReviewSession:
+        """Scan the data and open its review file (InputError, ReviewStoreError on failure)."""
+        result = scan(options)
+        store = ReviewStore(options.review_file, result.source.fingerprint)
+        return cls(options, result, store)
+
+    def close(self) -> None:
+        self.store.close()
+
+    # -- rows and the view --------------------------------------------------------------
+    @property
+    def rows(self) -> pl.DataFrame:
+        """Every comparison with its review and the list's columns, in scan order."""
+        return self._rows
+
+    def row(self, key: str) -> ReviewedRow | None:
+        found = self._rows.filter(pl.col(col.KEY) == key)
+        return reviewed_row(found, 0) if found.height else None
+
+    def set_filter(self, text: str) -> str | None:
+        """Use the filter line ``text``; returns the error when a word cannot be read (the
+        rows are then shown unfiltered)."""
+        self.filter_text = text
+        try:
+            self._filter = parse_filter(text, self._rows.columns)
+        except FilterError as error:
+            self._filter = None
+            self.filter_error = str(error)
+        else:
+            self.filter_error = None
+        return self.filter_error
+
+    def set_sort(self, column: str, descending: bool = False) -> None:
+        if column not in self._rows.columns:
+            raise ValueError(f"cannot sort on {column!r}: no such column")
+        self.sort_on, self.descending = column, descending
+
+    def sorted(self, frame: pl.DataFrame) -> pl.DataFrame:
+        return frame.sort(
+            self.sort_on, descending=self.descending, nulls_last=True, maintain_order=True
+        )
+
+    def view(self) -> pl.DataFrame:
+        """The rows the filter shows, in the current order."""
+        frame = self._rows if self._filter is None else self._rows.filter(self._filter)
+        return self.sorted(frame)
+
+    def counts(self) -> dict[str, int]:
+        """How many rows there are, are flagged, decided, and reviewed on earlier data."""
+        rows = self._rows
+        return {
+            "all": rows.height,
+            "flagged": int(rows[col.FLAGGED].sum()),
+            "decided": int(rows[col.DECISION].is_not_null().sum()),
+            "earlier": int(rows[col.ON_EARLIER_DATA].sum()),
+        }
+
+    # -- reviewing -------------------------------------------------------------------------
+    def toggle_flag(self, key: str) -> bool:
+        """Flip the flag; returns the new state. Saved before it returns."""
+        flagged = self.store.toggle_flag(key)
+        self._refresh(key)
+        return flagged
+
+    def decide(self, key: str, decision: Decision | None) -> None:
+        """Set the decision (None clears it). Saved before it returns."""
+        self.store.set_decision(key, decision)
+        self._refresh(key)
+
+    def set_note(self, key: str, text: str) -> None:
+        """Replace the note (empty removes it). Saved before it returns."""
+        self.store.set_note(key, text)
+        self._refresh(key)
+
+    def review_values(self, key: str) -> dict[str, Any]:
+        """The review columns of ``key`` as stored now."""
+        return _review_values(self.store.get(key))
+
+    def apply_review(self, frame: pl.DataFrame, key: str) -> pl.DataFrame:
+        """``frame`` with the stored review of ``key`` written into its row (other rows as
+        they are): how the list shows a change without re-filtering under the cursor."""
+        match = pl.col(col.KEY) == key
+        return frame.with_columns(
+            pl.when(match)
+            .then(pl.lit(value, dtype=frame.schema[name]))
+            .otherwise(pl.col(name))
+            .alias(name)
+            for name, value in self.review_values(key).items()
+        )
+
+    def _refresh(self, key: str) -> None:
+        self._rows = self.apply_review(self._rows, key)
+
+    # -- cross-checks ----------------------------------------------------------------------
+    @property
+    def can_cross_check(self) -> bool:
+        return self._checker is not None
+
+    def group_values(self, row: ReviewedRow) -> tuple[np.ndarray, np.ndarray]:
+        """The usable values of both groups of a row (empty without raw data)."""
+        if self.result.values is None:
+            return np.empty(0), np.empty(0)
+        values = self.result.values.values
+        return values(group_id(row, "a")), values(group_id(row, "b"))
+
+    def check_jobs(self, frame: pl.DataFrame) -> list[CheckJob]:
+        """The cross-checks the rows of ``frame`` need (those without one yet)."""
+        return check_jobs(frame, skip=self.checks)
+
+    def run_check(self, job: CheckJob) -> RobustCheck:
+        """Compute one cross-check (safe in a worker thread); record it with ``record``."""
+        if self._checker is None:
+            raise InputError("cross-checks need raw values; a summary table has none")
+        _, group_a, group_b = job
+        return self._checker.check(group_a, group_b)
+
+    def record(self, key: str, check: RobustCheck) -> None:
+        self.checks[key] = check
+
+    def cross_check(
+        self,
+        frame: pl.DataFrame,
+        *,
+        progress: Callable[[int, int], None] | None = None,
+        cancelled: Callable[[], bool] | None = None,
+    ) -> int:
+        """Cross-check every row of ``frame`` that has none yet; returns how many were done."""
+        if self._checker is None:
+            raise InputError("cross-checks need raw values; a summary table has none")
+        jobs = self.check_jobs(frame)
+        done = self._checker.check_many(jobs, progress=progress, cancelled=cancelled)
+        self.checks.update(done)
+        return len(done)
+
+    # -- export ----------------------------------------------------------------------------
+    def selection(self, which: Selection) -> pl.DataFrame:
+        """The rows of a selection in the current order (``shown``: the filter's rows)."""
+        if which == "shown":
+            return self.view()
+        frame = self._rows
+        if which == "flagged":
+            frame = frame.filter(pl.col(col.FLAGGED))
+        elif which == "decided":
+            frame = frame.filter(pl.col(col.DECISION).is_not_null())
+        return self.sorted(frame)
+
+    def export_frame(self, which: Selection) -> pl.DataFrame:
+        """The rows an export writes, with the export's columns and their sentences."""
+        frame = self.selection(which)
+        checks = checks_frame(frame[col.KEY].to_list(), self.checks)
+        frame = frame.drop(*LIST_SCHEMA).join(checks, on=col.KEY, how="left", maintain_order="left")
+        frame = frame.select(list(EXPORT_SCHEMA))
+        return frame.with_columns(sentence_column(frame))
+
+    def export_settings(self, which: Selection) -> dict[str, Any]:
+        return self.result.metadata() | {
+            "rows_chosen": which,
+            "filter": self.filter_text if which == "shown" else "",
+            "sort": {"column": self.sort_on, "descending": self.descending},
+            "reviews": str(self.store.path),
+            "cross_check_resamples": self.options.resamples,
+            "cross_check_seed": self.options.seed,
+        }
+
+    def export(self, path: Path, which: Selection, *, overwrite: bool = False) -> ExportReport:
+        """Write the selection to CSV with its settings sidecar, atomically."""
+        frame = self.export_frame(which)
+        written = write_export(frame, path, self.export_settings(which), overwrite=overwrite)
+        return ExportReport(written, frame.height)
