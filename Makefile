@@ -21,7 +21,8 @@ demo: setup
 test: setup
 	$(BIN)/ruff check stats tui demo tests
 	$(BIN)/ruff format --check stats tui demo tests
-	$(BIN)/mypy stats tui demo
+	$(BIN)/mypy --strict stats
+	$(BIN)/mypy tui demo
 	$(BIN)/python -m pytest -q -p no:cacheprovider tests
 
 bench: setup

@@ -60,7 +60,12 @@ WARNINGS: dict[WarningName, str] = {
 }
 
 #: Warnings that make "ratio of medians" doubtful: the finding then speaks of geometric means.
-SYMMETRY_WARNINGS: tuple[WarningName, ...] = ("log-skew", "log-not-normal", "median-vs-gm", "spread-differs")
+SYMMETRY_WARNINGS: tuple[WarningName, ...] = (
+    "log-skew",
+    "log-not-normal",
+    "median-vs-gm",
+    "spread-differs",
+)
 
 
 def group_normality(values: GroupValues) -> pl.DataFrame:
@@ -150,7 +155,8 @@ def warning_expression() -> pl.Expr:
         "median-vs-gm": pl.col("median_gm_z").abs() > MEDIAN_GM_Z,
     }
     parts = [
-        pl.when(condition.fill_null(False)).then(pl.lit(name)) for name, condition in conditions.items()
+        pl.when(condition.fill_null(False)).then(pl.lit(name))
+        for name, condition in conditions.items()
     ]
     return pl.concat_list(parts).list.drop_nulls().cast(pl.List(pl.Enum(list(WARNING_NAMES))))
 

@@ -13,6 +13,7 @@ import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Literal
 
 import polars as pl
 
@@ -24,6 +25,7 @@ MAX_GROUP_LEVELS = 50
 MAX_INTEGER_GROUP_LEVELS = 6
 #: Share of non-missing entries that must parse as numbers for an outcome column.
 NUMERIC_SHARE = 0.8
+
 
 class InputError(ValueError):
     """Bad input: the message is one line that names the file or column and what to do."""
@@ -140,25 +142,18 @@ def _sniff_separator(sample: str, suffix: str) -> str:
         return best if counts[best] > 0 else ","
 
 
-def read_raw(path: Path | str) -> pl.DataFrame:
-    """Read CSV/TSV/Parquet; text files are read as strings so censored entries survive."""
-    path = Path(path)
-    if not path.exists():
-        raise InputError(f"{path}: no such file; check the path and try again")
-    if path.is_dir():
-        raise InputError(f"{path}: is a folder, not a data file; give a CSV, TSV or Parquet file")
-    suffix = path.suffix.lower()
-    if suffix in (".parquet", ".pq"):
-        try:
-            frame = pl.read_parquet(path)
-        except Exception as error:  # polars raises several error types for bad files
-            raise InputError(
-                f"{path}: cannot be read as Parquet ({type(error).__name__}); "
-                "check that the file is complete"
-            ) from None
-        if frame.height == 0:
-            raise InputError(f"{path}: has a header but no data rows; nothing to compare")
-        return frame
+def _read_parquet(path: Path) -> pl.DataFrame:
+    try:
+        return pl.read_parquet(path)
+    except Exception as error:  # polars raises several error types for bad files
+        raise InputError(
+            f"{path}: cannot be read as Parquet ({type(error).__name__}); "
+            "check that the file is complete"
+        ) from None
+
+
+def _text_head(path: Path) -> tuple[str, str]:
+    """The first 64 KiB as text, and the encoding polars should read the file with."""
     try:
         with path.open("rb") as handle:
             head = handle.read(64 * 1024)
@@ -174,13 +169,14 @@ def read_raw(path: Path | str) -> pl.DataFrame:
             f"{path}: looks like a binary file, not text; give a CSV, TSV or Parquet file"
         )
     try:
-        sample = head.decode("utf-8")
+        return head.decode("utf-8"), "utf8"
     except UnicodeDecodeError:
-        sample = head.decode("latin-1")
-        encoding = "utf8-lossy"
-    else:
-        encoding = "utf8"
-    separator = _sniff_separator(sample, suffix)
+        return head.decode("latin-1"), "utf8-lossy"
+
+
+def _read_delimited(path: Path) -> pl.DataFrame:
+    sample, encoding = _text_head(path)
+    separator = _sniff_separator(sample, path.suffix.lower())
     try:
         frame = pl.read_csv(
             path,
@@ -196,11 +192,23 @@ def read_raw(path: Path | str) -> pl.DataFrame:
     except Exception as error:
         first = str(error).strip().splitlines()[0] if str(error).strip() else ""
         raise InputError(f"{path}: cannot be read as a delimited table ({first[:120]})") from None
+    frame = frame.rename({name: name.strip() for name in frame.columns})
+    return _decimal_commas(frame) if separator != "," else frame
+
+
+def read_raw(path: Path | str) -> pl.DataFrame:
+    """Read CSV/TSV/Parquet; text files are read as strings so censored entries survive."""
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: no such file; check the path and try again")
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder, not a data file; give a CSV, TSV or Parquet file")
+    if path.suffix.lower() in (".parquet", ".pq"):
+        frame = _read_parquet(path)
+    else:
+        frame = _read_delimited(path)
     if frame.height == 0:
         raise InputError(f"{path}: has a header but no data rows; nothing to compare")
-    frame = frame.rename({name: name.strip() for name in frame.columns})
-    if separator != ",":
-        frame = _decimal_commas(frame)
     return frame
 
 
@@ -274,10 +282,37 @@ def _looks_like_identifier(name: str, values: pl.Series, distinct: int) -> bool:
     return numbers.len() == distinct and bool((numbers.diff().drop_nulls() == 1).all())
 
 
+Role = Literal["grouping", "outcome"] | None
+
+
+def _text_role(frame: pl.DataFrame, name: str, share: float, distinct: int) -> Role:
+    """The role of a text column: numbers (mostly) or labels."""
+    if share >= NUMERIC_SHARE:
+        text_values = frame[name].drop_nulls().str.strip_chars()
+        integer_like = bool(text_values.str.contains(r"^-?\d+$").all())
+        if integer_like and _looks_like_identifier(name, text_values, distinct):
+            return None  # a sample number, not a measurement nor a grouping
+        if integer_like and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
+            return "grouping"
+        return "outcome"
+    if 2 <= distinct <= MAX_GROUP_LEVELS and distinct < frame.height:
+        return "grouping"
+    return None
+
+
+def _typed_role(dtype: pl.DataType, distinct: int) -> Role:
+    """The role of a column that arrived typed (Parquet, an in-memory frame)."""
+    if dtype.is_integer() and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
+        return "grouping"
+    if dtype.is_numeric():
+        return "outcome"
+    if dtype == pl.Boolean:
+        return "grouping"
+    return None
+
+
 def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
     """Guess grouping and outcome columns of a raw frame."""
-    groupings: list[str] = []
-    outcomes: list[str] = []
     string_columns = [n for n, t in frame.schema.items() if t in (pl.Utf8, pl.Categorical)]
     shares = _numeric_share(frame.select(string_columns)) if string_columns else {}
     # Float columns are outcomes whatever their count of distinct values: skip counting them.
@@ -285,30 +320,21 @@ def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
     levels = (
         frame.select(pl.col(counted).drop_nulls().n_unique()).row(0, named=True) if counted else {}
     )
+    roles: dict[str, list[str]] = {"grouping": [], "outcome": []}
     for name, dtype in frame.schema.items():
         distinct = levels.get(name, 0)
-        if name in shares and shares[name] >= NUMERIC_SHARE:
-            text_values = frame[name].drop_nulls().str.strip_chars()
-            integer_like = text_values.str.contains(r"^-?\d+$").all()
-            if integer_like and _looks_like_identifier(name, text_values, distinct):
-                continue  # a sample number, not a measurement nor a grouping
-            if integer_like and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
-                groupings.append(name)
-            else:
-                outcomes.append(name)
-        elif name in shares:
-            if 2 <= distinct <= MAX_GROUP_LEVELS and distinct < frame.height:
-                groupings.append(name)
-        elif dtype.is_integer() and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
-            groupings.append(name)
-        elif dtype.is_numeric():
-            outcomes.append(name)
-        elif dtype == pl.Boolean:
-            groupings.append(name)
-    return groupings, outcomes
+        if name in shares:
+            role = _text_role(frame, name, shares[name], distinct)
+        else:
+            role = _typed_role(dtype, distinct)
+        if role is not None:
+            roles[role].append(name)
+    return roles["grouping"], roles["outcome"]
 
 
-def _read(path: Path | str | None, frame: pl.DataFrame | None) -> tuple[pl.DataFrame, Path | None, str]:
+def _read(
+    path: Path | str | None, frame: pl.DataFrame | None
+) -> tuple[pl.DataFrame, Path | None, str]:
     """The raw frame, its path and its fingerprint, from a file or an in-memory frame."""
     if frame is not None:
         return frame, (Path(path) if path is not None else None), frame_fingerprint(frame)
@@ -389,7 +415,9 @@ def _typed(
     return raw.select(columns), {k: int(v) for k, v in counts.items() if v}
 
 
-def _check_values(typed: pl.DataFrame, groupings: list[str], outcomes: list[str], label: str) -> None:
+def _check_values(
+    typed: pl.DataFrame, groupings: list[str], outcomes: list[str], label: str
+) -> None:
     for name in outcomes:
         if typed[name].is_null().all():
             raise InputError(

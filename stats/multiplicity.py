@@ -15,7 +15,6 @@ from .vocabulary import FAMILIES
 __all__ = ["FAMILIES", "adjust"]
 
 
-
 def adjust(p_values: np.ndarray, family: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Return (Holm, Benjamini–Hochberg) adjusted p-values, each family adjusted alone."""
     p = np.asarray(p_values, dtype=float)

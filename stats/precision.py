@@ -32,7 +32,11 @@ def _power(
 
 
 def _bisect(
-    function: Callable[[np.ndarray], np.ndarray], low: np.ndarray, high: np.ndarray, iterations: int = 80) -> np.ndarray:
+    function: Callable[[np.ndarray], np.ndarray],
+    low: np.ndarray,
+    high: np.ndarray,
+    iterations: int = 80,
+) -> np.ndarray:
     """Vectorised bisection for an increasing function crossing zero in [low, high]."""
     low = low.astype(float).copy()
     high = high.astype(float).copy()

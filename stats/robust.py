@@ -43,6 +43,7 @@ _BRUTE_FORCE_PAIRS = 4_000_000
 
 FloatArray = npt.NDArray[np.float64]
 
+
 @dataclass(frozen=True)
 class RobustCheck:
     """Cross-checks of one comparison; NaN with a reason where they cannot be computed."""

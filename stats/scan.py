@@ -139,7 +139,9 @@ def _check_references(summaries: pl.DataFrame, references: tuple[Reference, ...]
     known = set(summaries.select("grouping", "level").unique().rows())
     levels = {level for _, level in known}
     for item in references:
-        found = item.level in levels if item.grouping is None else (item.grouping, item.level) in known
+        found = (
+            item.level in levels if item.grouping is None else (item.grouping, item.level) in known
+        )
         if not found:
             raise InputError(
                 f"reference level {str(item)!r} is not a level of any grouping column; "
@@ -152,7 +154,9 @@ def _level_pairs(grouping: str, levels: list[str], settings: ScanSettings) -> li
     if settings.pairs == "reference":
         reference = _reference_for(grouping, ordered, settings.reference) or ordered[0]
         return [(reference, level) for level in ordered if level != reference]
-    return [(ordered[i], ordered[j]) for i in range(len(ordered)) for j in range(i + 1, len(ordered))]
+    return [
+        (ordered[i], ordered[j]) for i in range(len(ordered)) for j in range(i + 1, len(ordered))
+    ]
 
 
 def build_pairs(summaries: pl.DataFrame, settings: ScanSettings) -> pl.DataFrame:
@@ -202,7 +206,10 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
     summaries = group_summaries(used, specs, table.outcomes, table.names)
     normality = diagnostics.group_normality(values)
     summaries = summaries.join(
-        normality, on=["grouping", "within", "stratum", "level", "outcome"], how="left", nulls_equal=True
+        normality,
+        on=["grouping", "within", "stratum", "level", "outcome"],
+        how="left",
+        nulls_equal=True,
     )
     comparisons = compare_summaries(complete_summaries(summaries), settings, table.outcomes)
     source = DataSource(
@@ -227,13 +234,17 @@ def complete_summaries(summaries: pl.DataFrame) -> pl.DataFrame:
     )
 
 
-def _join_sides(summaries: pl.DataFrame, settings: ScanSettings, outcomes: tuple[str, ...]) -> pl.DataFrame:
+def _join_sides(
+    summaries: pl.DataFrame, settings: ScanSettings, outcomes: tuple[str, ...]
+) -> pl.DataFrame:
     """Each pair of levels with both groups' figures (``n_a``, ``n_b``, ...), in outcome order."""
     pairs = build_pairs(summaries, settings)
     figures = [c for c in summaries.columns if c not in (*_SET, "level", "outcome")]
 
     def one_side(which: Literal["a", "b"]) -> pl.DataFrame:
-        return summaries.rename({"level": side("level", which), **{c: side(c, which) for c in figures}})
+        return summaries.rename(
+            {"level": side("level", which), **{c: side(c, which) for c in figures}}
+        )
 
     frame = pairs.join(one_side("a"), on=[*_SET, "level_a"], how="inner", nulls_equal=True).join(
         one_side("b"), on=[*_SET, "outcome", "level_b"], how="inner", nulls_equal=True

@@ -38,7 +38,9 @@ def stratum_phrase(row: ComparisonRow) -> str:
 
 def _not_comparable(row: ComparisonRow, outcome: str, group_a: str, group_b: str) -> str:
     why = "too few usable values" if "too-few" in row["warnings"] else "no spread in the values"
-    return f"{outcome}: {group_b} against {group_a}{stratum_phrase(row)} cannot be compared ({why})."
+    return (
+        f"{outcome}: {group_b} against {group_a}{stratum_phrase(row)} cannot be compared ({why})."
+    )
 
 
 def finding(row: ComparisonRow) -> str:
@@ -76,5 +78,7 @@ def sentence_column(frame: pl.DataFrame) -> pl.Series:
     """The ``sentence`` column for every row of a comparisons frame."""
     rows: list[Mapping[str, object]] = list(frame.iter_rows(named=True))
     return pl.Series(
-        SENTENCE, [finding(row) for row in rows], dtype=pl.Utf8  # type: ignore[arg-type]
+        SENTENCE,
+        [finding(row) for row in rows],
+        dtype=pl.Utf8,  # type: ignore[arg-type]
     )

@@ -14,7 +14,6 @@ from scipy import stats as sps
 from .vocabulary import TESTS, Test
 
 
-
 @dataclass(frozen=True)
 class LogTTest:
     """Arrays, one entry per comparison; NaN where the test cannot be computed."""

@@ -27,10 +27,10 @@ import pytest
 from scipy import stats as sps
 
 from foldsift.stats import diagnostics, robust
-from foldsift.stats.values import GroupValues, group_specs
 from foldsift.stats.load import load_table
 from foldsift.stats.policy import ValuePolicy, apply_policy
 from foldsift.stats.scan import run_scan
+from foldsift.stats.values import GroupValues, group_specs
 
 WEIGHTS = [148, 154, 158, 160, 161, 162, 166, 170, 182, 195, 236]
 X1 = [0.11, 7.87, 4.61, 10.14, 7.95, 3.14, 0.46, 4.43, 0.21, 4.75]

@@ -56,7 +56,10 @@ def test_within_equals_the_scan_of_each_stratum_alone(pairs):
     # adjustment runs over the whole stratified scan, so q differs from a per-stratum scan
     assert stratified["q_bh"].null_count() == 0
     # review keys keep the form review files already hold
-    assert all(s.startswith(("zone within season=dry|", "zone within season=wet|")) for s in stratified["key"])
+    assert all(
+        s.startswith(("zone within season=dry|", "zone within season=wet|"))
+        for s in stratified["key"]
+    )
 
 
 def test_within_robust_checks_use_the_stratum_rows_only():

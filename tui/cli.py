@@ -83,7 +83,10 @@ def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = T
         metavar="COL",
         help="compare inside each level of this grouping column (strata), not pooled over it",
     )
-    method = parser.add_argument_group("method")
+    _add_method_options(parser.add_argument_group("method"))
+
+
+def _add_method_options(method: argparse._ArgumentGroup) -> None:
     method.add_argument(
         "--pairs",
         choices=PAIRS,
@@ -330,7 +333,15 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(
         dest="command", required=True, metavar="COMMAND", parser_class=_Parser
     )
-    scan = commands.add_parser("scan", help="compute every comparison and write CSV")
+    _add_scan_command(commands.add_parser("scan", help="compute every comparison and write CSV"))
+    _add_review_command(commands.add_parser("review", help="open the full-screen review app"))
+    _add_export_command(
+        commands.add_parser("export", help="write reviewed rows to CSV without the app")
+    )
+    return parser
+
+
+def _add_scan_command(scan: argparse.ArgumentParser) -> None:
     add_scan_options(scan)
     scan.add_argument("--out", type=Path, metavar="FILE.csv", help="write here instead of stdout")
     scan.add_argument(
@@ -350,7 +361,9 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="N",
         help=f"bootstrap resamples (default {DEFAULT_RESAMPLES})",
     )
-    review = commands.add_parser("review", help="open the full-screen review app")
+
+
+def _add_review_command(review: argparse.ArgumentParser) -> None:
     add_scan_options(review, data_required=False)
     review.add_argument(
         "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
@@ -360,7 +373,9 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="cross-check every comparison in the background after opening (progress shown)",
     )
-    export = commands.add_parser("export", help="write reviewed rows to CSV without the app")
+
+
+def _add_export_command(export: argparse.ArgumentParser) -> None:
     add_scan_options(export, data_required=False)
     export.add_argument(
         "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
@@ -390,7 +405,6 @@ def build_parser() -> argparse.ArgumentParser:
     )
     export.add_argument("--out", type=Path, required=True, metavar="FILE.csv")
     export.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
-    return parser
 
 
 def main(argv: list[str] | None = None) -> int:

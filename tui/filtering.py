@@ -71,9 +71,7 @@ def _condition(word: str, match: re.Match[str]) -> pl.Expr:
         value = float(match["value"])
     except ValueError:
         raise FilterError(f"{word!r}: {match['value']!r} is not a number") from None
-    column = (
-        pl.min_horizontal(col.N_A, col.N_B) if field == "n" else pl.col(NUMERIC_FIELDS[field])
-    )
+    column = pl.min_horizontal(col.N_A, col.N_B) if field == "n" else pl.col(NUMERIC_FIELDS[field])
     return _OPERATORS[match["op"]](column, value).fill_null(False)
 
 

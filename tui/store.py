@@ -227,9 +227,7 @@ class ReviewStore:
                 raise ReviewStoreError(f"{self._path}: could not save the change ({exc})") from exc
             raise
 
-    def _modify(
-        self, key: str, change: Callable[[bool, Decision | None, str], _Fields]
-    ) -> _Fields:
+    def _modify(self, key: str, change: Callable[[bool, Decision | None, str], _Fields]) -> _Fields:
         _check_key(key)
         with self._transaction() as conn:
             row = conn.execute(
