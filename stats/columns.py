@@ -198,9 +198,11 @@ SENTENCE = "sentence"
 IDENTITY = (GROUPING, WITHIN, STRATUM, OUTCOME, LEVEL_A, LEVEL_B)
 #: The columns that name one group of one outcome in the per-group summaries.
 GROUP_IDENTITY = (GROUPING, WITHIN, STRATUM, "level", OUTCOME)
-#: Where the review key puts the stratum: ``zone within season=dry``.
-WITHIN_WORD = " within "
+#: Separates the parts of a review key; a part holding it (or the escape) is escaped.
 KEY_SEPARATOR = "|"
+KEY_ESCAPE = "\\"
+#: How keys written before parts were escaped named a stratum: ``zone within season=dry``.
+WITHIN_WORD = " within "
 
 
 def side(name: str, which: Side) -> str:
@@ -208,10 +210,28 @@ def side(name: str, which: Side) -> str:
     return f"{name}_{which}"
 
 
+def _escaped(part: pl.Expr) -> pl.Expr:
+    return part.str.replace_all(KEY_ESCAPE, KEY_ESCAPE * 2, literal=True).str.replace_all(
+        KEY_SEPARATOR, KEY_ESCAPE + KEY_SEPARATOR, literal=True
+    )
+
+
 def key_expression() -> pl.Expr:
-    """The review key of each comparison: ``grouping|outcome|level_a|level_b``, the grouping
-    written ``grouping within column=stratum`` inside a stratum (the form review files
-    already hold)."""
+    """The review key of each comparison, unambiguous for any names: the parts
+    ``grouping|outcome|level_a|level_b`` (then ``|within|stratum`` inside a stratum), each
+    with backslash and ``|`` escaped by a backslash. A comparison of names without those
+    characters and outside strata keeps the key review files have always held."""
+    parts = [_escaped(pl.col(name)) for name in (GROUPING, OUTCOME, LEVEL_A, LEVEL_B)]
+    plain = pl.concat_str(parts, separator=KEY_SEPARATOR)
+    stratified = pl.concat_str(
+        [*parts, _escaped(pl.col(WITHIN)), _escaped(pl.col(STRATUM))], separator=KEY_SEPARATOR
+    )
+    return pl.when(pl.col(WITHIN).is_null()).then(plain).otherwise(stratified)
+
+
+def earlier_key_expression() -> pl.Expr:
+    """The key review files held before key parts were escaped (parts joined as they are,
+    a stratum written into the grouping): read only to carry old reviews over."""
     grouping = (
         pl.when(pl.col(WITHIN).is_not_null())
         .then(pl.concat_str(GROUPING, pl.lit(WITHIN_WORD), WITHIN, pl.lit("="), STRATUM))

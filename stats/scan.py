@@ -29,24 +29,30 @@ _SET = ["grouping", "within", "stratum"]
 
 @dataclass(frozen=True)
 class Reference:
-    """The reference level (denominator) of one grouping, or of every grouping that has a
-    level of that name when ``grouping`` is None."""
+    """A reference level (denominator) as the user wrote it: ``LEVEL`` (for every grouping
+    that has that level) or ``GROUPING=LEVEL``. Names may themselves hold ``=``: every
+    reading is tried against the groupings and levels of the data, and a text that fits
+    more than one is refused as ambiguous."""
 
-    level: str
-    grouping: str | None = None
+    text: str
 
     @classmethod
     def parse(cls, text: str) -> Reference:
-        """``LEVEL`` or ``GROUPING=LEVEL``."""
-        grouping, equals, level = text.partition("=")
-        if not equals:
-            return cls(text)
-        if not grouping or not level:
+        if not text or text.startswith("=") or text.endswith("="):
             raise ValueError(f"reference {text!r}: write LEVEL or GROUPING=LEVEL")
-        return cls(level, grouping)
+        return cls(text)
+
+    @classmethod
+    def of(cls, level: str, grouping: str | None = None) -> Reference:
+        return cls(level if grouping is None else f"{grouping}={level}")
+
+    def readings(self) -> list[tuple[str | None, str]]:
+        """(grouping or None, level) for the whole text and each ``=`` it holds."""
+        splits = [i for i, char in enumerate(self.text) if char == "="]
+        return [(None, self.text)] + [(self.text[:i], self.text[i + 1 :]) for i in splits]
 
     def __str__(self) -> str:
-        return self.level if self.grouping is None else f"{self.grouping}={self.level}"
+        return self.text
 
 
 @dataclass(frozen=True)
@@ -126,33 +132,55 @@ class ScanResult:
         }
 
 
-def _reference_for(
-    grouping: str, levels: list[str], references: tuple[Reference, ...]
-) -> str | None:
-    for item in references:
-        if item.grouping in (None, grouping) and item.level in levels:
-            return item.level
+#: A resolved reference: (grouping or None for every grouping, level).
+_Resolved = tuple[str | None, str]
+
+
+def _reference_for(grouping: str, levels: list[str], resolved: list[_Resolved]) -> str | None:
+    for name, level in resolved:
+        if name in (None, grouping) and level in levels:
+            return level
     return None
 
 
-def _check_references(summaries: pl.DataFrame, references: tuple[Reference, ...]) -> None:
+def _resolve_references(
+    summaries: pl.DataFrame, references: tuple[Reference, ...]
+) -> list[_Resolved]:
+    """Each reference's one reading that names levels of this data; an InputError for a
+    reference that fits none or more than one."""
     known = set(summaries.select("grouping", "level").unique().rows())
     levels = {level for _, level in known}
+    resolved = []
     for item in references:
-        found = (
-            item.level in levels if item.grouping is None else (item.grouping, item.level) in known
-        )
-        if not found:
+        fits = [
+            (name, level)
+            for name, level in item.readings()
+            if (level in levels if name is None else (name, level) in known)
+        ]
+        if not fits:
             raise InputError(
                 f"reference level {str(item)!r} is not a level of any grouping column; "
                 "write LEVEL or GROUPING=LEVEL"
             )
+        if len(fits) > 1:
+            readings = "; ".join(
+                f"level {level!r}" if name is None else f"grouping {name!r} level {level!r}"
+                for name, level in fits
+            )
+            raise InputError(
+                f"reference {str(item)!r} is ambiguous in this data ({readings}); "
+                "rename a column or level, or give the grouping with --pairs all"
+            )
+        resolved.append(fits[0])
+    return resolved
 
 
-def _level_pairs(grouping: str, levels: list[str], settings: ScanSettings) -> list[tuple[str, str]]:
+def _level_pairs(
+    grouping: str, levels: list[str], pairs: Pairs, references: list[_Resolved]
+) -> list[tuple[str, str]]:
     ordered = level_order(levels)
-    if settings.pairs == "reference":
-        reference = _reference_for(grouping, ordered, settings.reference) or ordered[0]
+    if pairs == "reference":
+        reference = _reference_for(grouping, ordered, references) or ordered[0]
         return [(reference, level) for level in ordered if level != reference]
     return [
         (ordered[i], ordered[j]) for i in range(len(ordered)) for j in range(i + 1, len(ordered))
@@ -161,12 +189,12 @@ def _level_pairs(grouping: str, levels: list[str], settings: ScanSettings) -> li
 
 def build_pairs(summaries: pl.DataFrame, settings: ScanSettings) -> pl.DataFrame:
     """One row per grouping × stratum × (level_a, level_b); level_a is the denominator."""
-    _check_references(summaries, settings.reference)
+    references = _resolve_references(summaries, settings.reference)
     sets = summaries.group_by(_SET, maintain_order=True).agg(pl.col("level").unique()).rows()
     rows = [
         (grouping, within, stratum, level_a, level_b)
         for grouping, within, stratum, levels in sets
-        for level_a, level_b in _level_pairs(grouping, list(levels), settings)
+        for level_a, level_b in _level_pairs(grouping, list(levels), settings.pairs, references)
     ]
     return pl.DataFrame(
         rows, schema={name: pl.Utf8 for name in [*_SET, "level_a", "level_b"]}, orient="row"

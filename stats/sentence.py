@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import re
-from collections.abc import Mapping
+from typing import cast
 
 import polars as pl
 
@@ -76,9 +76,5 @@ def finding(row: ComparisonRow) -> str:
 
 def sentence_column(frame: pl.DataFrame) -> pl.Series:
     """The ``sentence`` column for every row of a comparisons frame."""
-    rows: list[Mapping[str, object]] = list(frame.iter_rows(named=True))
-    return pl.Series(
-        SENTENCE,
-        [finding(row) for row in rows],
-        dtype=pl.Utf8,  # type: ignore[arg-type]
-    )
+    rows = frame.iter_rows(named=True)
+    return pl.Series(SENTENCE, [finding(cast(ComparisonRow, row)) for row in rows], dtype=pl.Utf8)

@@ -139,7 +139,7 @@ def test_semicolon_file_with_decimal_commas(tmp_path):
     table = load_table(path)
     assert table.outcomes == ("biceps_skinfold_mm",)
     row = run_scan(
-        table, ScanSettings(test="pooled", pairs="reference", reference=(Reference("coeliac"),))
+        table, ScanSettings(test="pooled", pairs="reference", reference=(Reference.of("coeliac"),))
     ).comparisons.row(0, named=True)
     assert row["ratio"] == pytest.approx(1.3442, abs=5e-5)
     assert (row["ci_low"], row["ci_high"]) == pytest.approx((0.8919, 2.0258), abs=5e-5)

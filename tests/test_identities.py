@@ -53,7 +53,7 @@ def test_swapping_groups_inverts_ratio_and_ci(a, b, test):
     reciprocal and the CI (low, high) becomes (1/high, 1/low); p is unchanged."""
     x, y = draw(a), draw(b)
     forward = scan(x, y, test)
-    backward = scan(x, y, test, pairs="reference", reference=(Reference("b"),))
+    backward = scan(x, y, test, pairs="reference", reference=(Reference.of("b"),))
     assert (backward["level_a"], backward["level_b"]) == ("b", "a")
     assert close(backward["ratio"], 1 / forward["ratio"])
     assert close(backward["ci_low"], 1 / forward["ci_high"])

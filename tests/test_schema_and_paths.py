@@ -30,7 +30,7 @@ from foldsift.stats.columns import (
     schema_of,
     side,
 )
-from foldsift.stats.load import DerivedNames, load_table
+from foldsift.stats.load import DerivedNames, InputError, load_table
 from foldsift.stats.robust import robust_all
 from foldsift.stats.scan import Reference, ScanSettings, run_scan
 from foldsift.stats.summary_input import scan_summary_table
@@ -93,7 +93,7 @@ def test_schema_is_derived_from_the_typed_row_in_csv_order():
         value for name, value in vars(col).items() if name.isupper() and isinstance(value, str)
     ]
     known = {*EXPORT_SCHEMA, *col.LIST_SCHEMA, col.SENTENCE}
-    separators = {col.WITHIN_WORD, col.KEY_SEPARATOR}
+    separators = {col.WITHIN_WORD, col.KEY_SEPARATOR, col.KEY_ESCAPE}
     assert {c for c in constants if c not in separators} <= known
     assert side("n", "a") == "n_a" and side("sd_log", "b") == "sd_log_b"
 
@@ -141,11 +141,52 @@ def test_derived_names_never_equal_a_user_name():
 
 
 def test_reference_is_parsed_once_into_a_value():
-    assert Reference.parse("japan") == Reference("japan")
-    assert Reference.parse("origin=japan") == Reference("japan", "origin")
-    assert str(Reference("japan", "origin")) == "origin=japan"
+    assert Reference.parse("japan") == Reference.of("japan")
+    assert Reference.parse("origin=japan") == Reference.of("japan", "origin")
+    assert Reference.of("L2", "dose=mg").readings() == [
+        (None, "dose=mg=L2"),
+        ("dose", "mg=L2"),
+        ("dose=mg", "L2"),
+    ]
     with pytest.raises(ValueError, match="GROUPING=LEVEL"):
         Reference.parse("origin=")
+
+
+def _dose_frame() -> pl.DataFrame:
+    rng = np.random.default_rng(8)
+    return pl.DataFrame(
+        {
+            "dose=mg": np.repeat(["L1", "L2", "L3"], 10),
+            "site": np.tile(["L2", "x"], 15),
+            "lead": rng.lognormal(0, 0.4, 30),
+        }
+    )
+
+
+def test_a_reference_with_equals_signs_in_the_grouping_name_is_read_right():
+    """``--reference dose=mg=L2`` on a grouping named ``dose=mg``: level L2 of that
+    grouping is the denominator; the other grouping keeps its first level."""
+    table = load_table(frame=_dose_frame(), groupings=["dose=mg", "site"], outcomes=["lead"])
+    settings = ScanSettings(pairs="reference", reference=(Reference.parse("dose=mg=L2"),))
+    got = run_scan(table, settings).comparisons
+    dose = got.filter(pl.col("grouping") == "dose=mg")
+    assert dose.select("level_a", "level_b").rows() == [("L2", "L1"), ("L2", "L3")]
+    site = got.filter(pl.col("grouping") == "site")
+    assert site.select("level_a", "level_b").rows() == [("L2", "x")]
+
+
+def test_an_ambiguous_reference_is_refused_clearly():
+    """``L2`` names a level of both groupings here, which is fine (both use it); but
+    ``site=L2`` read as grouping 'site' fits, and so would a level literally named so."""
+    frame = _dose_frame().with_columns(
+        pl.when(pl.col("site") == "x")
+        .then(pl.lit("site=L2"))
+        .otherwise(pl.col("site"))
+        .alias("site")
+    )
+    table = load_table(frame=frame, groupings=["dose=mg", "site"], outcomes=["lead"])
+    with pytest.raises(InputError, match="ambiguous"):
+        run_scan(table, ScanSettings(pairs="reference", reference=(Reference.parse("site=L2"),)))
     with pytest.raises(ValueError, match="choose one of"):
         ScanSettings(test="student")  # type: ignore[arg-type]
 
@@ -227,7 +268,7 @@ def test_scan_out_is_atomic_and_has_the_settings_sidecar(tmp_path, monkeypatch, 
     import foldsift.tui.export as export_module
 
     monkeypatch.setattr(export_module.os, "replace", broken_replace)
-    assert main(["scan", str(data), "--out", str(out), "--test", "pooled"]) == 2
+    assert main(["scan", str(data), "--out", str(out), "--test", "pooled", "--overwrite"]) == 2
     assert "cannot be written" in capsys.readouterr().err
     assert out.read_bytes() == before, "a failed write leaves the old file whole"
     assert sorted(p.name for p in tmp_path.iterdir()) == [

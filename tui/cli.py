@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Callable
 from pathlib import Path
 
 from foldsift.stats.equivalence import DEFAULT_BAND, parse_band
@@ -178,6 +179,7 @@ def options_from(args: argparse.Namespace) -> SessionOptions:
         summary=bool(getattr(args, "summary", False)),
         reviews_path=getattr(args, "reviews", None),
         resamples=getattr(args, "resamples", DEFAULT_RESAMPLES),
+        allow_formulas=bool(getattr(args, "allow_formulas", False)),
     )
 
 
@@ -186,13 +188,38 @@ def _fail(message: str) -> int:
     return EXIT_BAD_INPUT
 
 
-def _check_out(path: Path | None) -> None:
-    if path is not None and not path.parent.exists():
+def _check_out(path: Path | None, args: argparse.Namespace) -> None:
+    """Refuse an output path before any work: a missing folder, a folder, the input data,
+    or an existing file without --overwrite."""
+    if path is None:
+        return
+    if not path.parent.exists():
         raise InputError(
             f"{path}: folder {path.parent} does not exist; create it or choose another"
         )
-    if path is not None and path.is_dir():
+    if path.is_dir():
         raise InputError(f"{path}: is a folder; give a file name for the CSV")
+    data = data_path(args)
+    if path.exists() and data.exists() and path.resolve().samefile(data):
+        raise InputError(f"{path}: is the input data file; choose another name for the CSV")
+    if path.exists() and not args.overwrite:
+        raise InputError(f"{path} exists; add --overwrite to replace it")
+
+
+def _guarded_write(args: argparse.Namespace, write: Callable[[], int]) -> int:
+    """Run one atomic CSV write (``write`` returns the rows written); one-line errors."""
+    try:
+        rows = write()
+    except FileExistsError:
+        return _fail(f"{args.out} exists; add --overwrite to replace it")
+    except OSError as error:
+        reason = error.strerror or str(error)
+        return _fail(f"{args.out}: cannot be written ({reason}); nothing was changed")
+    print(
+        f"foldsift: wrote {rows} rows to {args.out} (settings in {args.out}.settings.json)",
+        file=sys.stderr,
+    )
+    return 0
 
 
 def _describe(result: ScanResult) -> None:
@@ -219,13 +246,12 @@ def _describe(result: ScanResult) -> None:
 
 
 def command_scan(args: argparse.Namespace) -> int:
-    from foldsift.stats.columns import csv_ready
     from foldsift.stats.robust import robust_all
     from foldsift.stats.sentence import sentence_column
 
-    from .export import write_export
+    from .export import csv_text, write_export
 
-    _check_out(args.out)
+    _check_out(args.out, args)
     options = options_from(args)
     if args.robust and options.summary:
         return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
@@ -237,19 +263,22 @@ def command_scan(args: argparse.Namespace) -> int:
         print(file=sys.stderr)
     comparisons = comparisons.with_columns(sentence_column(comparisons))
     if args.out is None:
-        sys.stdout.write(csv_ready(comparisons).write_csv())
+        sys.stdout.write(csv_text(comparisons, allow_formulas=args.allow_formulas).write_csv())
         return 0
     metadata = result.metadata() | {"rows_chosen": "all", "cross_checks": bool(args.robust)}
-    try:
-        write_export(comparisons, args.out, metadata, overwrite=True)
-    except OSError as error:
-        return _fail(f"{args.out}: cannot be written ({error.strerror or error})")
-    print(
-        f"foldsift: wrote {comparisons.height} rows to {args.out} "
-        f"(settings in {args.out}.settings.json)",
-        file=sys.stderr,
-    )
-    return 0
+
+    def write() -> int:
+        write_export(
+            comparisons,
+            args.out,
+            metadata,
+            overwrite=args.overwrite,
+            protect=[options.data_path],
+            allow_formulas=args.allow_formulas,
+        )
+        return comparisons.height
+
+    return _guarded_write(args, write)
 
 
 def _progress_bar(done: int, total: int) -> None:
@@ -287,14 +316,15 @@ def _export_selection(args: argparse.Namespace) -> Selection:
 
 
 def command_export(args: argparse.Namespace) -> int:
-    _check_out(args.out)
+    _check_out(args.out, args)
     options = options_from(args)
-    if not options.review_file.exists():
-        return _fail(
-            f"{options.review_file}: no review file yet; review the data first or give --reviews PATH"
-        )
     which = _export_selection(args)
-    session = ReviewSession.open(options)
+    if which in ("flagged", "decided") and not options.review_file.exists():
+        return _fail(
+            f"{options.review_file}: no review file yet, so nothing is {which}; review the data "
+            "first, give --reviews PATH, or export --rows all"
+        )
+    session = ReviewSession.open_to_read(options)
     try:
         error = session.set_filter(args.filter or "")
         if error:
@@ -304,18 +334,22 @@ def command_export(args: argparse.Namespace) -> int:
                 return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
             session.cross_check(session.selection(which), progress=_progress_bar)
             print(file=sys.stderr)
-        try:
-            report = session.export(args.out, which, overwrite=args.overwrite)
-        except FileExistsError:
-            return _fail(f"{args.out} exists; add --overwrite to replace it")
+        _say_unmatched(session.unmatched_reviews, options.review_file)
+        return _guarded_write(
+            args, lambda: session.export(args.out, which, overwrite=args.overwrite).rows
+        )
     finally:
         session.close()
-    print(
-        f"foldsift: wrote {report.rows} rows to {report.path} "
-        f"(settings in {report.path}.settings.json)",
-        file=sys.stderr,
-    )
-    return 0
+
+
+def _say_unmatched(keys: list[str], path: Path) -> None:
+    if keys:
+        shown = ", ".join(keys[:3]) + (" …" if len(keys) > 3 else "")
+        print(
+            f"foldsift: {len(keys)} review(s) in {path} match no comparison of this data "
+            f"(kept in the file): {shown}",
+            file=sys.stderr,
+        )
 
 
 class _Parser(argparse.ArgumentParser):
@@ -343,6 +377,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _add_scan_command(scan: argparse.ArgumentParser) -> None:
     add_scan_options(scan)
+    scan.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
+    _add_formula_option(scan)
     scan.add_argument("--out", type=Path, metavar="FILE.csv", help="write here instead of stdout")
     scan.add_argument(
         "--summary",
@@ -365,6 +401,7 @@ def _add_scan_command(scan: argparse.ArgumentParser) -> None:
 
 def _add_review_command(review: argparse.ArgumentParser) -> None:
     add_scan_options(review, data_required=False)
+    _add_formula_option(review)
     review.add_argument(
         "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
     )
@@ -405,6 +442,16 @@ def _add_export_command(export: argparse.ArgumentParser) -> None:
     )
     export.add_argument("--out", type=Path, required=True, metavar="FILE.csv")
     export.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
+    _add_formula_option(export)
+
+
+def _add_formula_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--allow-formulas",
+        action="store_true",
+        help="write text cells that begin with = + - @ as they are (by default they get a "
+        "leading ' so spreadsheet programs do not run them as formulas)",
+    )
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -1,16 +1,28 @@
 """Join reviews onto comparisons and write them as CSV plus a JSON file of the settings used.
 
-Both files are written atomically (temporary file in the target folder, fsync, os.replace),
-so a reader never sees half a file and a crash leaves either the old file or the new one.
+Every CSV foldsift writes goes through ``write_export``:
+
+- Both files are written atomically (temporary file in the target folder, fsync,
+  os.replace), so a reader never sees half a file and a crash leaves either the old file or
+  the new one. Temporary files carry the writer's process id; ones left by a process that
+  no longer runs are removed at the next write.
+- A path that is a symbolic link is written through to its target; anything that is not a
+  regular file (a device, a pipe, a folder) is refused, and so is the input data file.
+- Text cells that begin with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return get a
+  leading apostrophe, so a spreadsheet program shows them instead of running them as a
+  formula (the practice web-security guidance recommends for CSV files); numbers stay
+  numbers, and so do text cells that are plain numbers (``-5``). ``allow_formulas=True``
+  turns this off.
 """
 
 from __future__ import annotations
 
 import contextlib
+import glob
 import json
 import os
 import secrets
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, BinaryIO
@@ -19,7 +31,38 @@ import polars as pl
 
 from foldsift.stats.columns import csv_ready
 
-__all__ = ["SELECTIONS", "join_reviews", "select_rows", "settings_path", "write_export"]
+__all__ = [
+    "SELECTIONS",
+    "ExportError",
+    "guard_formulas",
+    "join_reviews",
+    "select_rows",
+    "settings_path",
+    "write_export",
+]
+
+#: The first characters that make a spreadsheet program read a cell as a formula.
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+_PLAIN_NUMBER = r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$"
+
+
+class ExportError(ValueError):
+    """The export cannot be written where asked; the message says why and what to do."""
+
+
+def guard_formulas(frame: pl.DataFrame) -> pl.DataFrame:
+    """Text cells that a spreadsheet would run as a formula, with a leading apostrophe."""
+    guarded = []
+    for name, dtype in frame.schema.items():
+        if dtype == pl.String:
+            cell = pl.col(name)
+            risky = cell.str.starts_with(FORMULA_STARTS[0])
+            for start in FORMULA_STARTS[1:]:
+                risky = risky | cell.str.starts_with(start)
+            risky = risky & ~cell.str.contains(_PLAIN_NUMBER)
+            guarded.append(pl.when(risky).then(pl.lit("'") + cell).otherwise(cell).alias(name))
+    return frame.with_columns(guarded) if guarded else frame
+
 
 SELECTIONS: tuple[str, ...] = ("flagged", "all")
 
@@ -66,28 +109,62 @@ def settings_path(csv_path: Path) -> Path:
     return csv_path.with_name(csv_path.name + ".settings.json")
 
 
+def _target(path: Path, protect: Sequence[Path]) -> Path:
+    """The regular file to write: a symbolic link's target; refuses the input data and
+    anything that is not a regular file."""
+    path = Path(path).expanduser()
+    if path.is_symlink():
+        path = path.resolve()
+    if path.is_dir():
+        raise IsADirectoryError(f"{path} is a folder; give a file name for the export")
+    if path.exists() and not path.is_file():
+        raise ExportError(f"{path}: is not a regular file (a device or a pipe); choose a file name")
+    for other in protect:
+        if path.exists() and Path(other).exists() and path.samefile(other):
+            raise ExportError(f"{path}: is the input data file; choose another name for the CSV")
+    if not path.parent.is_dir():
+        raise ExportError(
+            f"{path}: folder {path.parent} does not exist; create it or choose another"
+        )
+    return path
+
+
+def csv_text(frame: pl.DataFrame, *, allow_formulas: bool = False) -> pl.DataFrame:
+    """The frame as the CSV holds it: lists joined, enums as text, formulas guarded."""
+    frame = csv_ready(frame)
+    _reject_nested(frame)
+    return frame if allow_formulas else guard_formulas(frame)
+
+
 def write_export(
-    frame: pl.DataFrame, path: Path, settings: dict[str, Any], overwrite: bool = False
+    frame: pl.DataFrame,
+    path: Path,
+    settings: dict[str, Any],
+    overwrite: bool = False,
+    *,
+    protect: Sequence[Path] = (),
+    allow_formulas: bool = False,
 ) -> Path:
     """Write ``frame`` to ``path`` as CSV and the settings to ``<path>.settings.json``.
 
     The JSON holds ``settings`` under the key ``"settings"`` (kept apart so a setting can
-    never collide with the fields added here) plus ``exported_at``, ``rows``, ``columns``
-    and ``csv``. Existing files are only replaced when ``overwrite`` is true.
+    never collide with the fields added here) plus ``exported_at``, ``rows``, ``columns``,
+    ``csv`` and ``formulas_guarded``. Existing files are only replaced when ``overwrite``
+    is true; the files in ``protect`` (the input data) never are.
     """
-    path = Path(path).expanduser()
+    path = _target(path, protect)
     sidecar = settings_path(path)
-    frame = csv_ready(frame)
-    _reject_nested(frame)
+    frame = csv_text(frame, allow_formulas=allow_formulas)
     if not overwrite:
         for target in (path, sidecar):
             if target.exists():
                 raise FileExistsError(
                     f"{target} already exists; choose another name or allow overwriting"
                 )
-    if path.is_dir():
-        raise IsADirectoryError(f"{path} is a folder; give a file name for the export")
+    _remove_stale_temps(path)
+    _remove_stale_temps(sidecar)
     meta = {
+        "formulas_guarded": not allow_formulas,
         "settings": settings,
         "exported_at": datetime.now(UTC).isoformat(timespec="seconds"),
         "rows": frame.height,
@@ -143,7 +220,7 @@ def _create_temp(target: Path) -> tuple[int, Path]:
     run."""
     flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0)
     for _ in range(100):
-        tmp = target.with_name(f".{target.name}.{secrets.token_hex(6)}.tmp")
+        tmp = target.with_name(f".{target.name}.{os.getpid()}-{secrets.token_hex(6)}.tmp")
         try:
             return os.open(tmp, flags, 0o666), tmp
         except FileExistsError:
@@ -163,6 +240,28 @@ def _write_temp(target: Path, write: Callable[[BinaryIO], object]) -> Path:
         _unlink_quietly(tmp)
         raise
     return tmp
+
+
+def _remove_stale_temps(target: Path) -> None:
+    """Remove temporary files of ``target`` left by a writer that no longer runs (killed
+    during an export): our own naming, ``.<name>.<pid>-<random>.tmp``."""
+    prefix = f".{target.name}."
+    for leftover in target.parent.glob(f"{glob.escape(prefix)}*.tmp"):
+        pid_text = leftover.name[len(prefix) :].partition("-")[0]
+        if pid_text.isdigit() and not _running(int(pid_text)):
+            _unlink_quietly(leftover)
+
+
+def _running(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True  # someone else's process: leave its files alone
+    return True
 
 
 def _unlink_quietly(path: Path) -> None:

@@ -4,6 +4,7 @@ through it, and tests use it directly."""
 
 from __future__ import annotations
 
+import tempfile
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -17,6 +18,7 @@ from foldsift.stats.columns import (
     EXPORT_SCHEMA,
     LIST_SCHEMA,
     ReviewedRow,
+    earlier_key_expression,
     reviewed_row,
 )
 from foldsift.stats.load import InputError, load_table
@@ -59,6 +61,7 @@ class SessionOptions:
     reviews_path: Path | None = None
     resamples: int = DEFAULT_RESAMPLES
     seed: int = DEFAULT_SEED
+    allow_formulas: bool = False  # write text cells like "=1+1" unguarded
 
     @property
     def review_file(self) -> Path:
@@ -85,6 +88,30 @@ class ExportReport:
 
     path: Path
     rows: int
+
+
+def carry_over(comparisons: pl.DataFrame, store: ReviewStore) -> pl.DataFrame:
+    """The stored reviews, with reviews kept under a comparison's earlier key (written
+    before key parts were escaped) moved to its key, in the file too when it is writable.
+    Only unambiguous moves are made: one comparison per earlier key, no review at the new
+    key yet."""
+    reviews = store.frame()
+    stored = set(reviews[col.KEY].to_list())
+    orphans = stored - set(comparisons[col.KEY].to_list())
+    if not orphans:
+        return reviews
+    earlier = comparisons.select(col.KEY, earlier_key_expression().alias("earlier"))
+    unique = earlier.filter(pl.len().over("earlier") == 1)
+    mapping = {
+        old: new
+        for new, old in unique.rows()
+        if old in orphans and old != new and new not in stored
+    }
+    if not mapping:
+        return reviews
+    if not store.read_only:
+        store.rename_keys(mapping)
+    return reviews.with_columns(pl.col(col.KEY).replace(mapping))
 
 
 def _list_columns(frame: pl.DataFrame, outcomes: Sequence[str]) -> pl.DataFrame:
@@ -131,8 +158,14 @@ class ReviewSession:
             if result.values is not None
             else None
         )
-        joined = join_reviews(result.comparisons, store.frame())
+        reviews = carry_over(result.comparisons, store)
+        known = set(result.comparisons[col.KEY].to_list())
+        #: Stored reviews that match no comparison (a level renamed, an outcome dropped):
+        #: kept in the file, counted and listed, never deleted.
+        self.unmatched_reviews: list[str] = [k for k in reviews[col.KEY] if k not in known]
+        joined = join_reviews(result.comparisons, reviews)
         self._rows = _list_columns(joined, result.source.outcomes)
+        self._cleanup: Callable[[], None] | None = None
 
     @classmethod
     def open(cls, options: SessionOptions) -> ReviewSession:
@@ -141,8 +174,26 @@ class ReviewSession:
         store = ReviewStore(options.review_file, result.source.fingerprint)
         return cls(options, result, store)
 
+    @classmethod
+    def open_to_read(cls, options: SessionOptions) -> ReviewSession:
+        """Scan the data and read its reviews without changing the review file: opened
+        read-only, or none yet (every row then unreviewed)."""
+        result = scan(options)
+        path = options.review_file
+        if path.exists():
+            store = ReviewStore(path, result.source.fingerprint, read_only=True)
+            return cls(options, result, store)
+        folder = tempfile.TemporaryDirectory(prefix="foldsift-")
+        store = ReviewStore(Path(folder.name) / "none.sqlite", result.source.fingerprint)
+        session = cls(options, result, store)
+        session._cleanup = folder.cleanup
+        return session
+
     def close(self) -> None:
         self.store.close()
+        if self._cleanup is not None:
+            self._cleanup()
+            self._cleanup = None
 
     # -- rows and the view --------------------------------------------------------------
     @property
@@ -302,5 +353,12 @@ class ReviewSession:
     def export(self, path: Path, which: Selection, *, overwrite: bool = False) -> ExportReport:
         """Write the selection to CSV with its settings sidecar, atomically."""
         frame = self.export_frame(which)
-        written = write_export(frame, path, self.export_settings(which), overwrite=overwrite)
+        written = write_export(
+            frame,
+            path,
+            self.export_settings(which),
+            overwrite=overwrite,
+            protect=[self.options.data_path],
+            allow_formulas=self.options.allow_formulas,
+        )
         return ExportReport(written, frame.height)
