@@ -57,10 +57,15 @@ def p_text(value: float | None, symbol: str = "") -> str:
 
 
 def percent_text(value: float | None) -> str:
-    """A percent change with its sign: ``+23%``, ``-48%``; scientific from 10,000%."""
+    """A percent change with its sign: ``+23%``, ``-48%``, one decimal below 1% (``-0.2%``),
+    scientific from 10,000%."""
     if not _finite(value):
         return MISSING
     assert value is not None
+    if abs(value) < 0.05:
+        return "0%"
+    if abs(value) < 1:
+        return f"{value:+.1f}%"
     return f"{value:+.0f}%" if abs(value) < 10000 else f"{value:+.0e}%"
 
 

@@ -1,34 +1,84 @@
 """Read a wide table and decide which columns group rows and which are outcomes.
 
 Every outcome column becomes two columns in the loaded frame: the numeric value
-(Float64, null where missing) and a Boolean ``censored`` flag for entries written
-like ``<0.5`` (below a detection limit; the value is then the limit itself).
+(Float64, null where missing) and a Boolean ``censored`` flag for entries below a detection
+limit (``<0.5``, ``0.5 U``; the value is then the limit itself).
+
+What the reader does with odd input, and where the rules are written:
+
+- The file is read once, its encoding, preamble (``sep=`` line, ``#`` comments), separator,
+  quoting and column names as :mod:`foldsift.stats.textfile` describes. Column names that
+  are empty, repeated or hold control characters are renamed (``column_N``, ``name_2``) and
+  a note says so; a nameless column with no entries (a separator at the end of every line)
+  is left out with a note.
+- Entries are read as numbers per column as :mod:`foldsift.stats.entries` describes:
+  below-detection codes, qualifiers, units, percentages, above-range entries, decimal
+  commas and thousands separators. A column whose entries are mostly numbers
+  (:data:`NUMERIC_SHARE` of its non-missing entries are numbers or recognised codes) is an
+  outcome; the entries that still cannot be read are counted and named, never the reason
+  to take the column for a grouping. An outcome with mixed units, or whose decimal mark
+  cannot be decided, is refused with a message naming the column.
+- Grouping columns: the missing markers (:data:`MISSING_WORDS`) are no level; those rows
+  are left out of that grouping's comparisons, and a note counts them.
+- Columns holding lists or structures (Parquet) cannot be groupings or outcomes: naming one
+  is refused; guessing passes over them.
 """
 
 from __future__ import annotations
 
-import csv
 import hashlib
 import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Literal
+from typing import Literal, get_args
 
 import polars as pl
 
-#: Entries treated as missing in outcome columns (compared case-insensitively).
-MISSING_WORDS = ("", "na", "n/a", "nan", "null", "none", "-", ".", "missing")
+from .entries import (
+    MISSING_WORDS,
+    ColumnReading,
+    Decimal,
+    ParsedColumn,
+    missing_of,
+    read_columns,
+    text_of,
+)
+from .errors import InputError
+from .textfile import RawTable, read_table_file
+
+__all__ = [
+    "MISSING_WORDS",
+    "DerivedNames",
+    "InputError",
+    "ReadOptions",
+    "Table",
+    "load_table",
+    "read_raw",
+    "read_source",
+]
+
 #: A string column with more distinct values than this is taken for an identifier.
 MAX_GROUP_LEVELS = 50
 #: An integer column with at most this many distinct values is taken for a grouping.
 MAX_INTEGER_GROUP_LEVELS = 6
-#: Share of non-missing entries that must parse as numbers for an outcome column.
-NUMERIC_SHARE = 0.8
+#: Share of non-missing entries that must be numbers or recognised codes (below detection,
+#: above range) for an outcome column: "mostly numbers", with room for up to 40% entries
+#: that cannot be read (they are counted and named).
+NUMERIC_SHARE = 0.6
 
 
-class InputError(ValueError):
-    """Bad input: the message is one line that names the file or column and what to do."""
+@dataclass(frozen=True)
+class ReadOptions:
+    """How to read a file where guessing is not safe: its text encoding (``--encoding``)
+    and its decimal mark (``--decimal comma|point``); None means decide from the file."""
+
+    encoding: str | None = None
+    decimal: Decimal | None = None
+
+    def __post_init__(self) -> None:
+        if self.decimal is not None and self.decimal not in get_args(Decimal):
+            raise ValueError(f"decimal must be comma or point, got {self.decimal!r}")
 
 
 @dataclass(frozen=True)
@@ -79,19 +129,26 @@ class Table:
     Attributes
     ----------
     frame:
-        Grouping columns as Utf8; each outcome as Float64 plus its censored flag
-        (``names.censored(outcome)``).
+        Grouping columns as Utf8 (null where there is no level); each outcome as Float64
+        plus its censored flag (``names.censored(outcome)``).
     groupings, outcomes:
         Column names in file order.
     path:
         The file read (None for an in-memory frame).
     fingerprint:
-        SHA-256 of the file's bytes (of the frame's CSV text for in-memory frames).
+        SHA-256 of the file's bytes as read (of the frame's values for in-memory frames).
     unparsed:
-        Per outcome, the count of entries that were neither numbers, censored
-        entries nor missing markers and were therefore read as missing.
+        Per outcome, the count of entries that were neither numbers, recognised codes nor
+        missing markers and were therefore read as missing.
     names:
         The names of the working columns derived from the user's columns.
+    readings:
+        Per text outcome, what reading its entries found (codes, units, decimal mark).
+    no_level:
+        Per grouping, the count of rows with no level (empty or a missing marker).
+    notes:
+        One line for each thing the reader did that the user should know (renamed columns,
+        the encoding, skipped lines, units, codes, rows without a level).
     """
 
     frame: pl.DataFrame
@@ -101,6 +158,9 @@ class Table:
     fingerprint: str
     unparsed: dict[str, int] = field(default_factory=dict)
     names: DerivedNames = field(default_factory=DerivedNames)
+    readings: dict[str, ColumnReading] = field(default_factory=dict)
+    no_level: dict[str, int] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
 
     @property
     def name(self) -> str:
@@ -128,172 +188,68 @@ def frame_fingerprint(frame: pl.DataFrame) -> str:
     return digest.hexdigest()
 
 
-def _sniff_separator(sample: str, suffix: str) -> str:
-    if suffix in (".tsv", ".tab"):
-        return "\t"
-    lines = [line for line in sample.splitlines() if line.strip()][:20]
-    if not lines:
-        return ","
-    try:
-        return csv.Sniffer().sniff("\n".join(lines), delimiters=",\t;|").delimiter
-    except csv.Error:
-        counts = {sep: lines[0].count(sep) for sep in ",\t;|"}
-        best = max(counts, key=lambda sep: counts[sep])
-        return best if counts[best] > 0 else ","
+def read_source(path: Path | str, reading: ReadOptions | None = None) -> RawTable:
+    """Read a CSV/TSV/Parquet file once: raw frame, fingerprint, separator and notes."""
+    return read_table_file(Path(path), (reading or ReadOptions()).encoding)
 
 
-def _read_parquet(path: Path) -> pl.DataFrame:
-    try:
-        return pl.read_parquet(path)
-    except Exception as error:  # polars raises several error types for bad files
-        raise InputError(
-            f"{path}: cannot be read as Parquet ({type(error).__name__}); "
-            "check that the file is complete"
-        ) from None
-
-
-def _text_head(path: Path) -> tuple[str, str]:
-    """The first 64 KiB as text, and the encoding polars should read the file with."""
-    try:
-        with path.open("rb") as handle:
-            head = handle.read(64 * 1024)
-    except OSError as error:
-        raise InputError(
-            f"{path}: cannot be opened ({error.strerror or type(error).__name__}); "
-            "check the file's permissions"
-        ) from None
-    if not head.strip():
-        raise InputError(f"{path}: is empty; give a table with a header row and data rows")
-    if b"\x00" in head:
-        raise InputError(
-            f"{path}: looks like a binary file, not text; give a CSV, TSV or Parquet file"
-        )
-    try:
-        return head.decode("utf-8"), "utf8"
-    except UnicodeDecodeError:
-        return head.decode("latin-1"), "utf8-lossy"
-
-
-def _read_delimited(path: Path) -> pl.DataFrame:
-    sample, encoding = _text_head(path)
-    separator = _sniff_separator(sample, path.suffix.lower())
-    try:
-        frame = pl.read_csv(
-            path,
-            separator=separator,
-            infer_schema=False,
-            encoding=encoding,
-            truncate_ragged_lines=False,
-        )
-    except pl.exceptions.NoDataError:
-        raise InputError(
-            f"{path}: is empty; give a table with a header row and data rows"
-        ) from None
-    except Exception as error:
-        first = str(error).strip().splitlines()[0] if str(error).strip() else ""
-        raise InputError(f"{path}: cannot be read as a delimited table ({first[:120]})") from None
-    frame = frame.rename({name: name.strip() for name in frame.columns})
-    return _decimal_commas(frame) if separator != "," else frame
-
-
-def read_raw(path: Path | str) -> pl.DataFrame:
+def read_raw(path: Path | str, reading: ReadOptions | None = None) -> pl.DataFrame:
     """Read CSV/TSV/Parquet; text files are read as strings so censored entries survive."""
-    path = Path(path)
-    if not path.exists():
-        raise InputError(f"{path}: no such file; check the path and try again")
-    if path.is_dir():
-        raise InputError(f"{path}: is a folder, not a data file; give a CSV, TSV or Parquet file")
-    if path.suffix.lower() in (".parquet", ".pq"):
-        frame = _read_parquet(path)
-    else:
-        frame = _read_delimited(path)
-    if frame.height == 0:
-        raise InputError(f"{path}: has a header but no data rows; nothing to compare")
-    return frame
+    return read_source(path, reading).frame
 
 
-_DECIMAL_COMMA = r"^(\s*<?\s*-?\d+),(\d+\s*)$"
+def _unusable(dtype: pl.DataType) -> str | None:
+    """What a column type holds when it cannot be a grouping or outcome (None if it can)."""
+    if isinstance(dtype, pl.List | pl.Array):
+        return "lists"
+    if isinstance(dtype, pl.Struct):
+        return "structures"
+    if dtype in (pl.Binary, pl.Object):
+        return "binary objects"
+    return None
 
 
-def _decimal_commas(frame: pl.DataFrame) -> pl.DataFrame:
-    """Files separated by ; or tabs often write 1,5 for 1.5: read a column's decimal commas
-    when every one of its non-empty entries is a number written that way or a plain one."""
-    changes = []
-    for name in frame.columns:
-        text = frame[name].drop_nulls().str.strip_chars()
-        text = text.filter(text != "")
-        with_comma = text.str.contains(_DECIMAL_COMMA)
-        if text.len() and with_comma.any():
-            plain = text.str.contains(r"^<?\s*-?\d+(\.\d+)?$")
-            if (with_comma | plain).all():
-                changes.append(pl.col(name).str.replace(_DECIMAL_COMMA, "$1.$2"))
-    return frame.with_columns(changes) if changes else frame
+def _is_text(dtype: pl.DataType) -> bool:
+    return dtype == pl.Utf8 or isinstance(dtype, pl.Categorical | pl.Enum)
 
 
-def _parse_outcome(column: pl.Expr) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
-    """Expressions for (value, censored flag, unparsed flag) of a string outcome column."""
-    text = column.cast(pl.Utf8).str.strip_chars()
-    lowered = text.str.to_lowercase()
-    missing = text.is_null() | lowered.is_in(list(MISSING_WORDS))
-    censored = text.str.starts_with("<")
-    number_text = (
-        pl.when(censored).then(text.str.strip_prefix("<").str.strip_chars()).otherwise(text)
-    )
-    value = number_text.cast(pl.Float64, strict=False)
-    value = pl.when(missing).then(None).otherwise(value)
-    value = pl.when(value.is_finite()).then(value).otherwise(None)
-    unparsed = (~missing) & value.is_null()
-    return value, (censored & value.is_not_null()), unparsed
-
-
-def _numeric_share(frame: pl.DataFrame) -> dict[str, float]:
-    exprs = []
-    for name in frame.columns:
-        value, _, unparsed = _parse_outcome(pl.col(name))
-        exprs.append(value.is_not_null().sum().alias(name + "\x00ok"))
-        exprs.append(unparsed.sum().alias(name + "\x00bad"))
-    counts = frame.select(exprs).row(0)
-    shares = {}
-    for index, name in enumerate(frame.columns):
-        ok, bad = counts[2 * index], counts[2 * index + 1]
-        shares[name] = ok / (ok + bad) if ok + bad else 0.0
-    return shares
-
-
-def _is_numeric_column(frame: pl.DataFrame, name: str) -> bool:
-    dtype = frame.schema[name]
-    if dtype.is_numeric():
-        return True
-    if dtype not in (pl.Utf8, pl.Categorical):
-        return False
-    return _numeric_share(frame.select(name))[name] >= NUMERIC_SHARE
-
-
+_ARTICLE = {"grouping": "a", "outcome": "an"}
 _ID_NAME = re.compile(r"(^|[_ .-])(id|no|num|number|index|idx|sample|row)$", re.IGNORECASE)
+_INTEGER = r"^[+-]?[0-9]+$"
 
 
-def _looks_like_identifier(name: str, values: pl.Series, distinct: int) -> bool:
+def _integer_like(frame: pl.DataFrame, name: str, value: pl.Series) -> bool:
+    """Every entry that gives a number is written as a whole number (``12``, not ``12.0``)."""
+    numbers = value.drop_nulls()
+    if numbers.len() == 0 or not (numbers % 1 == 0).all():
+        return False
+    written = frame.select(text_of(name))[name].filter(value.is_not_null())
+    return bool(written.str.contains(_INTEGER).all())
+
+
+def _looks_like_identifier(name: str, numbers: pl.Series) -> bool:
     """Whole numbers, one per row, named like an identifier or running 0/1..n in steps of 1."""
-    if distinct != values.len() or distinct < 3:
+    distinct = numbers.n_unique()
+    if distinct != numbers.len() or distinct < 3:
         return False
     if _ID_NAME.search(name):
         return True
-    numbers = values.cast(pl.Int64, strict=False).drop_nulls().sort()
-    return numbers.len() == distinct and bool((numbers.diff().drop_nulls() == 1).all())
+    ordered = numbers.sort()
+    return bool((ordered.diff().drop_nulls() == 1).all())
 
 
 Role = Literal["grouping", "outcome"] | None
 
 
-def _text_role(frame: pl.DataFrame, name: str, share: float, distinct: int) -> Role:
+def _text_role(frame: pl.DataFrame, name: str, parsed: ParsedColumn, distinct: int) -> Role:
     """The role of a text column: numbers (mostly) or labels."""
-    if share >= NUMERIC_SHARE:
-        text_values = frame[name].drop_nulls().str.strip_chars()
-        integer_like = bool(text_values.str.contains(r"^-?\d+$").all())
-        if integer_like and _looks_like_identifier(name, text_values, distinct):
-            return None  # a sample number, not a measurement nor a grouping
-        if integer_like and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
-            return "grouping"
+    if parsed.reading.entries and parsed.reading.share >= NUMERIC_SHARE:
+        if _integer_like(frame, name, parsed.value):
+            numbers = parsed.value.drop_nulls()
+            if _looks_like_identifier(name, numbers):
+                return None  # a sample number, not a measurement nor a grouping
+            if 2 <= numbers.n_unique() <= MAX_INTEGER_GROUP_LEVELS:
+                return "grouping"
         return "outcome"
     if 2 <= distinct <= MAX_GROUP_LEVELS and distinct < frame.height:
         return "grouping"
@@ -311,20 +267,42 @@ def _typed_role(dtype: pl.DataType, distinct: int) -> Role:
     return None
 
 
-def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
-    """Guess grouping and outcome columns of a raw frame."""
-    string_columns = [n for n, t in frame.schema.items() if t in (pl.Utf8, pl.Categorical)]
-    shares = _numeric_share(frame.select(string_columns)) if string_columns else {}
-    # Float columns are outcomes whatever their count of distinct values: skip counting them.
-    counted = [n for n, t in frame.schema.items() if not t.is_float()]
-    levels = (
-        frame.select(pl.col(counted).drop_nulls().n_unique()).row(0, named=True) if counted else {}
-    )
+def _level_counts(frame: pl.DataFrame, columns: Iterable[str]) -> dict[str, int]:
+    """Distinct non-missing values of the named columns."""
+    exprs = []
+    for name in columns:
+        if _is_text(frame.schema[name]):
+            text = text_of(name)
+            exprs.append(text.filter(~missing_of(text)).n_unique().alias(name))
+        else:
+            exprs.append(pl.col(name).drop_nulls().n_unique().alias(name))
+    return frame.select(exprs).row(0, named=True) if exprs else {}
+
+
+def _counted(frame: pl.DataFrame, parsed: dict[str, ParsedColumn]) -> list[str]:
+    """The columns whose role depends on their count of levels: text columns that are not
+    mostly numbers, and typed columns other than floats, lists and structures."""
+    return [
+        name
+        for name, dtype in frame.schema.items()
+        if (name in parsed and parsed[name].reading.share < NUMERIC_SHARE)
+        or (name not in parsed and not dtype.is_float() and _unusable(dtype) is None)
+    ]
+
+
+def infer_roles(
+    frame: pl.DataFrame, parsed: dict[str, ParsedColumn] | None = None
+) -> tuple[list[str], list[str]]:
+    """Guess grouping and outcome columns of a raw frame (``parsed``: its text columns read
+    as numbers, when already done)."""
+    if parsed is None:
+        parsed = read_columns(frame, [n for n, t in frame.schema.items() if _is_text(t)])
+    levels = _level_counts(frame, _counted(frame, parsed))
     roles: dict[str, list[str]] = {"grouping": [], "outcome": []}
     for name, dtype in frame.schema.items():
         distinct = levels.get(name, 0)
-        if name in shares:
-            role = _text_role(frame, name, shares[name], distinct)
+        if name in parsed:
+            role = _text_role(frame, name, parsed[name], distinct)
         else:
             role = _typed_role(dtype, distinct)
         if role is not None:
@@ -333,16 +311,15 @@ def infer_roles(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
 
 
 def _read(
-    path: Path | str | None, frame: pl.DataFrame | None
-) -> tuple[pl.DataFrame, Path | None, str]:
-    """The raw frame, its path and its fingerprint, from a file or an in-memory frame."""
+    path: Path | str | None, frame: pl.DataFrame | None, reading: ReadOptions
+) -> tuple[RawTable, Path | None]:
+    """The raw table (frame, fingerprint, separator, notes) and its path."""
     if frame is not None:
-        return frame, (Path(path) if path is not None else None), frame_fingerprint(frame)
+        source = Path(path) if path is not None else None
+        return RawTable(frame, frame_fingerprint(frame), None), source
     if path is None:
         raise ValueError("give a path or a frame")
-    path = Path(path)
-    raw = read_raw(path)
-    return raw, path, file_fingerprint(path)
+    return read_source(path, reading), Path(path)
 
 
 def _check_named(raw: pl.DataFrame, label: str, role: str, names: Sequence[str]) -> None:
@@ -352,15 +329,24 @@ def _check_named(raw: pl.DataFrame, label: str, role: str, names: Sequence[str])
             raise InputError(
                 f"{label}: no column named {name!r} (asked for as {role}); columns are: {shown}"
             )
+        holds = _unusable(raw.schema[name])
+        if holds:
+            raise InputError(
+                f"{label}: column {name!r} holds {holds} ({raw.schema[name]}), not one value "
+                f"per row, so it cannot be {_ARTICLE[role]} {role}; choose another column or flatten it first"
+            )
 
 
 def _choose_roles(
-    raw: pl.DataFrame, groupings: Sequence[str], outcomes: Sequence[str], label: str
+    raw: pl.DataFrame,
+    groupings: Sequence[str],
+    outcomes: Sequence[str],
+    parsed: dict[str, ParsedColumn],
 ) -> tuple[list[str], list[str]]:
     """Grouping and outcome columns: the named ones, the rest guessed."""
     if groupings and outcomes:
         return list(groupings), list(outcomes)
-    guessed_groups, guessed_outcomes = infer_roles(raw)
+    guessed_groups, guessed_outcomes = infer_roles(raw, parsed)
     chosen_groups = list(groupings) or [n for n in guessed_groups if n not in outcomes]
     if outcomes:
         return chosen_groups, list(outcomes)
@@ -370,10 +356,16 @@ def _choose_roles(
         chosen_outcomes += [
             name
             for name in guessed_groups
-            if name not in chosen_groups and _is_numeric_column(raw, name)
+            if name not in chosen_groups and _is_numeric_column(raw, name, parsed)
         ]
         chosen_outcomes.sort(key=raw.columns.index)
     return chosen_groups, chosen_outcomes
+
+
+def _is_numeric_column(raw: pl.DataFrame, name: str, parsed: dict[str, ParsedColumn]) -> bool:
+    if name in parsed:
+        return parsed[name].reading.share >= NUMERIC_SHARE
+    return raw.schema[name].is_numeric()
 
 
 def _check_roles(groupings: list[str], outcomes: list[str], label: str) -> None:
@@ -393,26 +385,39 @@ def _check_roles(groupings: list[str], outcomes: list[str], label: str) -> None:
         )
 
 
+def _check_readings(readings: dict[str, ColumnReading], label: str) -> None:
+    """Refuse an outcome whose entries cannot be read for sure (decimal mark, units)."""
+    for reading in readings.values():
+        problem = reading.problem or reading.unit_problem
+        if problem:
+            raise InputError(f"{label}: {problem}")
+
+
 def _typed(
-    raw: pl.DataFrame, groupings: list[str], outcomes: list[str], names: DerivedNames
-) -> tuple[pl.DataFrame, dict[str, int]]:
-    """Groupings as text; each outcome as Float64 plus its censored flag; unparsed counts."""
-    columns: list[pl.Expr] = [
-        pl.col(name).cast(pl.Utf8).str.strip_chars().alias(name) for name in groupings
-    ]
-    unparsed_exprs = []
+    raw: pl.DataFrame,
+    groupings: list[str],
+    outcomes: list[str],
+    names: DerivedNames,
+    parsed: dict[str, ParsedColumn],
+) -> pl.DataFrame:
+    """Groupings as text (null where there is no level); each outcome as Float64 plus its
+    censored flag."""
+    columns: list[pl.Expr] = []
+    for name in groupings:
+        text = text_of(name)
+        columns.append(pl.when(~missing_of(text)).then(text).alias(name))
+    series: list[pl.Series] = []
     for name in outcomes:
-        if raw.schema[name].is_numeric():
-            value = pl.col(name).cast(pl.Float64)
-            columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
-            columns.append(pl.lit(False).alias(names.censored(name)))
+        if name in parsed:
+            series.append(parsed[name].value.alias(name))
+            series.append(parsed[name].censored.alias(names.censored(name)))
             continue
-        value, censored, unparsed = _parse_outcome(pl.col(name))
-        columns.append(value.alias(name))
-        columns.append(censored.fill_null(False).alias(names.censored(name)))
-        unparsed_exprs.append(unparsed.sum().alias(name))
-    counts = raw.select(unparsed_exprs).row(0, named=True) if unparsed_exprs else {}
-    return raw.select(columns), {k: int(v) for k, v in counts.items() if v}
+        value = pl.col(name).cast(pl.Float64)
+        columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
+        columns.append(pl.lit(False).alias(names.censored(name)))
+    typed = raw.select(columns).hstack(series)
+    order = [c for name in outcomes for c in (name, names.censored(name))]
+    return typed.select(*groupings, *order)
 
 
 def _check_values(
@@ -443,35 +448,75 @@ def _check_values(
             )
 
 
+def _to_parse(raw: pl.DataFrame, groupings: Sequence[str], outcomes: Sequence[str]) -> list[str]:
+    """The text columns to read as numbers: the named outcomes when both roles are named
+    (nothing is guessed then), else every text column."""
+    texts = [name for name, dtype in raw.schema.items() if _is_text(dtype)]
+    if groupings and outcomes:
+        return [name for name in texts if name in outcomes]
+    return texts
+
+
+def _notes(
+    raw_notes: Sequence[str], readings: Iterable[ColumnReading], no_level: dict[str, int]
+) -> tuple[str, ...]:
+    notes = list(raw_notes)
+    for reading in readings:
+        notes += reading.notes()
+    for name, count in no_level.items():
+        notes.append(
+            f"{name}: {count} row(s) have no level (empty or a missing marker such as NA) "
+            "and are left out of its comparisons"
+        )
+    return tuple(notes)
+
+
 def load_table(
     path: Path | str | None = None,
     *,
     frame: pl.DataFrame | None = None,
     groupings: Sequence[str] | None = None,
     outcomes: Sequence[str] | None = None,
+    reading: ReadOptions | None = None,
 ) -> Table:
     """Load a file (or an in-memory raw frame) and resolve column roles.
 
     Named ``groupings``/``outcomes`` override the guesses; a named column that does not
-    exist raises :class:`InputError`.
+    exist, or that holds lists or structures, raises :class:`InputError`. ``reading`` sets
+    the encoding and the decimal mark where the file cannot be trusted to show them.
     """
-    raw, source, fingerprint = _read(path, frame)
-    label = str(source) if source is not None else "table"
+    reading = reading or ReadOptions()
+    named_groups, named_outcomes = tuple(groupings or ()), tuple(outcomes or ())
+    source, path_read = _read(path, frame, reading)
+    raw = source.frame
+    label = str(path_read) if path_read is not None else "table"
     if raw.height == 0:
         raise InputError(f"{label}: has a header but no data rows; nothing to compare")
-    _check_named(raw, label, "grouping", groupings or ())
-    _check_named(raw, label, "outcome", outcomes or ())
-    chosen_groups, chosen_outcomes = _choose_roles(raw, groupings or (), outcomes or (), label)
+    _check_named(raw, label, "grouping", named_groups)
+    _check_named(raw, label, "outcome", named_outcomes)
+    parsed = read_columns(
+        raw,
+        _to_parse(raw, named_groups, named_outcomes),
+        decimal=reading.decimal,
+        comma_hint=source.separator == ";",
+    )
+    chosen_groups, chosen_outcomes = _choose_roles(raw, named_groups, named_outcomes, parsed)
     _check_roles(chosen_groups, chosen_outcomes, label)
+    readings = {name: parsed[name].reading for name in chosen_outcomes if name in parsed}
+    _check_readings(readings, label)
     names = DerivedNames.beside(raw.columns)
-    typed, unparsed = _typed(raw, chosen_groups, chosen_outcomes, names)
+    typed = _typed(raw, chosen_groups, chosen_outcomes, names, parsed)
     _check_values(typed, chosen_groups, chosen_outcomes, label)
+    no_level = {g: typed[g].null_count() for g in chosen_groups if typed[g].null_count()}
     return Table(
         frame=typed,
         groupings=tuple(chosen_groups),
         outcomes=tuple(chosen_outcomes),
-        path=source,
-        fingerprint=fingerprint,
-        unparsed=unparsed,
+        path=path_read,
+        fingerprint=source.fingerprint,
+        unparsed={n: r.unparsed for n, r in readings.items() if r.unparsed},
         names=names,
+        readings=readings,
+        no_level=no_level,
+        notes=_notes(source.notes, readings.values(), no_level),
     )

@@ -25,6 +25,9 @@ Array = npt.NDArray[np.float64]
 
 #: The columns that name a set of levels compared with each other.
 _SET = ["grouping", "within", "stratum"]
+#: The default limit on the comparisons of one scan (each is a row the review lists; 200,000
+#: rows take a few hundred MB and well under a minute on a small machine).
+DEFAULT_MAX_COMPARISONS = 200_000
 
 
 @dataclass(frozen=True)
@@ -68,9 +71,13 @@ class ScanSettings:
     band: tuple[float, float] = equivalence.DEFAULT_BAND
     target_ratio: float | None = None
     within: str | None = None
+    #: The most comparisons a scan builds; more is refused before any is built.
+    max_comparisons: int = DEFAULT_MAX_COMPARISONS
 
     def __post_init__(self) -> None:
         choose(self.pairs, PAIRS, "pairs")
+        if self.max_comparisons < 1:
+            raise ValueError(f"max_comparisons must be at least 1, got {self.max_comparisons}")
         choose(self.test, TESTS, "test")
         choose(self.family, FAMILIES, "family")
         if not 0.5 <= self.confidence < 1:
@@ -101,6 +108,8 @@ class DataSource:
     groupings: tuple[str, ...]
     outcomes: tuple[str, ...]
     unparsed: dict[str, int] = field(default_factory=dict)
+    #: What the reader did that the user should know (one line each; see ``Table.notes``).
+    notes: tuple[str, ...] = ()
 
     @property
     def name(self) -> str:
@@ -187,8 +196,45 @@ def _level_pairs(
     ]
 
 
+_REFERENCE_ADVICE = {
+    "all": ", compare each level with one reference (--pairs reference)",
+    "reference": "",
+}
+
+
+def pairs_per_set(levels: int, pairs: Pairs) -> int:
+    """Pairs of levels one set of ``levels`` levels gives: all pairs, or each against one."""
+    if levels < 2:
+        return 0
+    return levels * (levels - 1) // 2 if pairs == "all" else levels - 1
+
+
+def check_comparison_count(
+    sets: pl.DataFrame, outcomes: int, settings: ScanSettings, label: str
+) -> None:
+    """Refuse a scan whose comparisons would exceed ``settings.max_comparisons`` before any
+    is built. ``sets`` has one row per compared set of levels: ``grouping`` and ``levels``
+    (the count of its levels)."""
+    per_set = [pairs_per_set(k, settings.pairs) for k in sets["levels"].to_list()]
+    total = sum(per_set) * outcomes
+    if total <= settings.max_comparisons:
+        return
+    counts = sets.with_columns(pl.Series("pairs", per_set, dtype=pl.Int64))
+    worst = counts.group_by("grouping").agg(pl.col("levels").max(), pl.col("pairs").sum())
+    grouping, levels, _ = worst.sort("pairs", descending=True).row(0)
+    raise InputError(
+        f"{label}: {total:,} comparisons (grouping {grouping!r} has {levels:,} levels, "
+        f"{outcomes} outcome(s)) is more than the limit of {settings.max_comparisons:,}; "
+        f"choose groupings with fewer levels{_REFERENCE_ADVICE[settings.pairs]}, "
+        "or raise the limit with --max-comparisons N"
+    )
+
+
 def build_pairs(summaries: pl.DataFrame, settings: ScanSettings) -> pl.DataFrame:
-    """One row per grouping × stratum × (level_a, level_b); level_a is the denominator."""
+    """One row per grouping × stratum × (level_a, level_b); level_a is the denominator.
+    Refuses before building when there would be more than ``settings.max_comparisons``."""
+    counts = summaries.group_by(_SET).agg(pl.col("level").n_unique().alias("levels"))
+    check_comparison_count(counts, summaries["outcome"].n_unique(), settings, "scan")
     references = _resolve_references(summaries, settings.reference)
     sets = summaries.group_by(_SET, maintain_order=True).agg(pl.col("level").unique()).rows()
     rows = [
@@ -224,11 +270,34 @@ def check_within(table: Table, within: str | None) -> None:
         )
 
 
+def _level_sets(table: Table, specs: list[GroupSpec]) -> pl.DataFrame:
+    """The count of levels of each set compared (a grouping, or a grouping within one
+    stratum), from the table before any summary is computed."""
+    parts = []
+    for spec in specs:
+        present = table.frame.select(spec.keys).drop_nulls()
+        if spec.within is None:
+            levels = present.select(pl.col(spec.grouping).n_unique().alias("levels"))
+        else:
+            levels = present.group_by(spec.within).agg(
+                pl.col(spec.grouping).n_unique().alias("levels")
+            )
+        parts.append(
+            levels.select(pl.lit(spec.grouping).alias("grouping"), pl.col("levels").cast(pl.Int64))
+        )
+    return (
+        pl.concat(parts)
+        if parts
+        else pl.DataFrame(schema={"grouping": pl.Utf8, "levels": pl.Int64})
+    )
+
+
 def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
     """Compute every comparison of the table under the settings."""
     settings = settings or ScanSettings()
     check_within(table, settings.within)
     specs: list[GroupSpec] = group_specs(table.groupings, settings.within)
+    check_comparison_count(_level_sets(table, specs), len(table.outcomes), settings, table.name)
     used = apply_policy(table.frame, table.outcomes, settings.policy, table.names)
     values = GroupValues(used, specs, table.outcomes, table.names)
     summaries = group_summaries(used, specs, table.outcomes, table.names)
@@ -247,6 +316,7 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         groupings=table.groupings,
         outcomes=table.outcomes,
         unparsed=dict(table.unparsed),
+        notes=table.notes,
     )
     return ScanResult(comparisons, summaries, settings, source, values)
 

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import polars as pl
 
-from .load import InputError, file_fingerprint, read_raw
+from .load import InputError, read_raw, read_source
 from .scan import DataSource, ScanResult, ScanSettings, compare_summaries, complete_summaries
 from .summaries import SUMMARY_SCHEMA
 
@@ -71,10 +71,11 @@ def _optional(typed: pl.DataFrame, name: str, dtype: pl.DataType) -> pl.Expr:
     return pl.lit(0 if dtype == pl.Int64 else None, dtype).alias(name)
 
 
-def read_summary_table(path: Path | str) -> pl.DataFrame:
-    """Read and check a summary table; return it in the scan's summary layout."""
+def read_summary_table(path: Path | str, raw: pl.DataFrame | None = None) -> pl.DataFrame:
+    """Read (unless ``raw`` is the file already read) and check a summary table; return it
+    in the scan's summary layout."""
     path = Path(path)
-    raw = read_raw(path)
+    raw = read_raw(path) if raw is None else raw
     raw = raw.rename({name: name.strip().lower() for name in raw.columns})
     spread = _spread_column(raw, path)
     typed = _typed(raw, spread, path)
@@ -112,12 +113,13 @@ def scan_summary_table(path: Path | str, settings: ScanSettings | None = None) -
     settings = settings or ScanSettings()
     if settings.within is not None:
         raise InputError(f"{path}: --within needs raw values; it cannot use a summary table")
-    summaries = complete_summaries(read_summary_table(path))
+    read = read_source(path)  # read once: the fingerprint is of the bytes parsed
+    summaries = complete_summaries(read_summary_table(path, read.frame))
     outcomes = tuple(dict.fromkeys(summaries["outcome"].to_list()))
     comparisons = compare_summaries(summaries, settings, outcomes)
     source = DataSource(
         path=path,
-        fingerprint=file_fingerprint(path),
+        fingerprint=read.fingerprint,
         kind="summary table",
         groupings=tuple(dict.fromkeys(summaries["grouping"].to_list())),
         outcomes=outcomes,

@@ -10,11 +10,16 @@ from pathlib import Path
 
 import polars as pl
 from textual.pilot import Pilot
-from textual.widgets import Static
+from textual.widget import Widget
+from textual.widgets import Input
 
 from foldsift.demo.generate import demo_path
+from foldsift.stats.columns import ReviewedRow, reviewed_row
 from foldsift.stats.sentence import finding
-from foldsift.tui.app import FoldsiftApp, make_app
+from foldsift.tui.app import FoldsiftApp
+from foldsift.tui.screens.dialogs import ExportScreen
+from foldsift.tui.screens.review import ReviewScreen
+from foldsift.tui.session import ReviewSession, SessionOptions
 from foldsift.tui.widgets.comparison_list import ComparisonList
 
 SIZE = (120, 36)
@@ -29,40 +34,96 @@ async def until(pilot: Pilot, condition: Callable[[], bool], what: str, timeout=
         await pilot.pause(0.02)
 
 
+def make_app(tmp_path: Path, data: Path | None = None) -> FoldsiftApp:
+    """The app on `data` (default: the demo) with its review file and exports in tmp_path."""
+    options = SessionOptions(data or demo_path(), reviews_path=tmp_path / "r.sqlite")
+    return FoldsiftApp(options, export_dir=tmp_path)
+
+
+def is_open(app: FoldsiftApp) -> bool:
+    """The data is open: the review screen is there (perhaps under a dialog)."""
+    return any(isinstance(screen, ReviewScreen) for screen in app.screen_stack)
+
+
 @asynccontextmanager
 async def running(
-    tmp_path: Path, data: Path | None = None, size: tuple[int, int] = SIZE
+    tmp_path: Path,
+    data: Path | None = None,
+    size: tuple[int, int] = SIZE,
 ) -> AsyncIterator[tuple[FoldsiftApp, Pilot]]:
     """The app on `data` (default: the demo) with the scan finished and the list shown."""
-    app = make_app(data or demo_path(), reviews=tmp_path / "r.sqlite", export_dir=tmp_path)
+    app = make_app(tmp_path, data)
     async with app.run_test(size=size) as pilot:
         await app.workers.wait_for_complete()
         await pilot.pause()
-        if app.result is not None:
-            await until(pilot, lambda: finding(current(app)) in sentence(app), "first sentence")
+        if app.error_text is None:
+            await until(pilot, lambda: ready(app), "the list and the first sentence")
         yield app, pilot
 
 
+def ready(app: FoldsiftApp) -> bool:
+    """The review screen shows its list and the detail of the first row."""
+    if not is_open(app) or not listing(app).frame.height:
+        return False
+    return finding(current(app)) in sentence(app)
+
+
+def review(app: FoldsiftApp) -> ReviewScreen:
+    """The review screen, also while a dialog is open over it."""
+    return next(screen for screen in app.screen_stack if isinstance(screen, ReviewScreen))
+
+
+def session(app: FoldsiftApp) -> ReviewSession:
+    """What the app saved and computed, read through its screen."""
+    return review(app).session
+
+
 def listing(app: FoldsiftApp) -> ComparisonList:
-    return app.query_one(ComparisonList)
+    return review(app).query_one(ComparisonList)
 
 
 def shown(app: FoldsiftApp) -> pl.DataFrame:
     return listing(app).frame
 
 
-def current(app: FoldsiftApp) -> dict:
+def current(app: FoldsiftApp) -> ReviewedRow:
     lst = listing(app)
-    return lst.frame.row(lst.cursor_row, named=True)
+    return reviewed_row(lst.frame, lst.cursor_row)
 
 
-def static_text(app: FoldsiftApp, selector: str) -> str:
-    return str(app.query_one(selector, Static).render())
+def widget_text(app: FoldsiftApp, selector: str) -> str:
+    """The text a widget of the current screen shows."""
+    widget = app.screen.query_one(selector, Widget)
+    return str(widget.render())
 
 
 def status(app: FoldsiftApp) -> str:
-    return static_text(app, "#status")
+    """The status line of the review screen (of the app's own screen before it opens)."""
+    screen = review(app) if is_open(app) else app.screen
+    return str(screen.query_one("#status", Widget).render())
 
 
 def sentence(app: FoldsiftApp) -> str:
-    return static_text(app, "#sentence")
+    return str(review(app).query_one("#sentence", Widget).render())
+
+
+async def export_via_dialog(
+    app: FoldsiftApp, pilot: Pilot, rows: str | None = None, name: str | None = None
+) -> None:
+    """Open the export dialog, pick rows and (typed) file name, press enter."""
+    await pilot.press("x")
+    await until(pilot, lambda: isinstance(app.screen, ExportScreen), "export dialog")
+    if rows is not None:
+        await pilot.click(f"#rows-{rows}")
+        await pilot.pause()
+    path_input = app.screen.query_one("#export-path", Input)
+    if name is not None:
+        path_input.value = ""
+        path_input.focus()
+        await pilot.pause()
+        await pilot.press(*name)
+        assert path_input.value == name
+    path_input.focus()
+    await pilot.pause()
+    await pilot.press("enter")
+    await pilot.pause()

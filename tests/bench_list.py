@@ -22,9 +22,11 @@ import polars as pl
 from textual.geometry import Region
 from textual.widgets import Input
 
-from foldsift.stats.scan import ScanSettings
 from foldsift.tui.app import FoldsiftApp
+from foldsift.tui.screens.review import ReviewScreen
+from foldsift.tui.session import SessionOptions
 from foldsift.tui.widgets.comparison_list import ComparisonList
+from foldsift.tui.widgets.detail import Charts, Facts
 
 
 def synthetic_csv(folder: Path, outcomes: int, levels: int, per_level: int = 12) -> Path:
@@ -39,17 +41,19 @@ def synthetic_csv(folder: Path, outcomes: int, levels: int, per_level: int = 12)
 
 
 async def measure(path: Path, repeats: int) -> dict[str, list[float]]:
-    app = FoldsiftApp(
-        path, ScanSettings(), reviews=path.with_suffix(".sqlite"), export_dir=path.parent
-    )
+    options = SessionOptions(path, reviews_path=path.with_suffix(".sqlite"))
+    app = FoldsiftApp(options, export_dir=path.parent)
     timings: dict[str, list[float]] = {}
     async with app.run_test(size=(120, 36)) as pilot:
         start = time.perf_counter()
         await app.workers.wait_for_complete()
+        while not isinstance(app.screen, ReviewScreen):
+            await pilot.pause(0.01)
         await pilot.pause()
         timings["open and scan (once)"] = [time.perf_counter() - start]
-        rows = app.base.height
-        print(f"comparisons in the list: {rows}")
+        screen = app.screen
+        assert isinstance(screen, ReviewScreen)
+        print(f"comparisons in the list: {screen.session.rows.height}")
 
         async def timed(name: str, *keys: str) -> None:
             start = time.perf_counter()
@@ -72,12 +76,13 @@ async def measure(path: Path, repeats: int) -> dict[str, list[float]]:
         for text in ("q", "<", "0", ".", "0", "5"):
             await timed("filter keystroke", text)
         await pilot.press("enter")
-        app.query_one("#filter", Input).value = ""  # every row again, for the direct timings
+        screen.query_one("#filter", Input).value = ""  # every row again, for direct timings
         await pilot.pause()
         # The app's own work per step, without the harness: handler + painting every
         # visible list line + the detail text; the charts are drawn 60 ms after the cursor
         # rests, so they are timed on their own.
-        listing = app.query_one(ComparisonList)
+        listing = screen.query_one(ComparisonList)
+        facts, charts = screen.query_one(Facts), screen.query_one(Charts)
         height = listing.size.height
 
         def paint_list() -> None:
@@ -86,15 +91,15 @@ async def measure(path: Path, repeats: int) -> dict[str, list[float]]:
                 listing.render_line(y)
 
         def paint(selector: str) -> None:
-            widget = app.query_one(selector)
+            widget = screen.query_one(selector)
             widget._styles_cache.clear()  # force a real paint, not a cached one
             widget.render_lines(Region(0, 0, widget.size.width, widget.size.height))
 
         for name, work in (
             ("direct: move + paint list", lambda: (listing.action_cursor_down(), paint_list())),
-            ("direct: detail text + paint", lambda: (app._show_facts(), paint("#sentence"))),
-            ("direct: both charts + paint", lambda: (app._show_plots(), paint("#plots"))),
-            ("direct: re-sort + paint", lambda: (app.action_next_sort(), paint_list())),
+            ("direct: detail text + paint", lambda: (facts.paint(), paint("#sentence"))),
+            ("direct: both charts + paint", lambda: (charts.draw(), paint("#plots"))),
+            ("direct: re-sort + paint", lambda: (screen.action_next_sort(), paint_list())),
         ):
             for _ in range(repeats):
                 start = time.perf_counter()

@@ -23,22 +23,31 @@ import numpy as np
 import polars as pl
 import pytest
 from scipy import stats as sps
+from textual.binding import Binding
 from textual.pilot import Pilot
 from textual.widgets import Input, Static
 
 from foldsift.demo.generate import demo_path
+from foldsift.stats.formatting import interval_text, ratio_text
 from foldsift.stats.load import file_fingerprint
-from foldsift.stats.policy import USED
-from foldsift.tui.store import ReviewStore
 from foldsift.stats.scan import ScanResult
-from foldsift.stats.sentence import finding, ratio_text
+from foldsift.stats.sentence import finding
 from foldsift.tui.app import FoldsiftApp
+from foldsift.tui.screens.dialogs import ExportScreen
+from foldsift.tui.screens.review import ReviewScreen
+from foldsift.tui.session import ReviewSession, SessionOptions
+from foldsift.tui.store import ReviewStore
 
 from app_support import (
     current,
+    export_via_dialog,
+    is_open,
     listing,
+    ready,
+    review,
     running,
     sentence,
+    session,
     shown,
     status,
     until,
@@ -57,15 +66,23 @@ async def filter_by_typing(app: FoldsiftApp, pilot: Pilot, text: str) -> None:
     assert isinstance(app.focused, Input)
     await pilot.press(*text, "enter")
     await pilot.pause()
-    assert app.filter_text == text, f"typed {text!r}, filter holds {app.filter_text!r}"
+    held = review(app).query_one("#filter", Input).value
+    assert held == text, f"typed {text!r}, filter holds {held!r}"
+    assert f"filter {text}" in status(app)
     assert app.focused is listing(app)
 
 
-def usable_values(result: ScanResult, grouping: str, level: str, outcome: str) -> np.ndarray:
-    """The policy-applied values of one group, read straight from the scan's frame."""
-    column = outcome + USED
-    part = result.used.filter(pl.col(grouping).cast(pl.Utf8) == level)
-    return part[column].drop_nulls().to_numpy()
+def usable_values(
+    data: Path, grouping: str, level: str, outcome: str, within: tuple[str, str] | None = None
+) -> np.ndarray:
+    """One group's values read straight from the CSV with the default policy applied by
+    hand: entries that are not numbers (``<120``, empty) and values <= 0 are left out."""
+    frame = pl.read_csv(data, infer_schema_length=0)  # every column as text
+    keep = pl.col(grouping) == level
+    if within is not None:
+        keep &= pl.col(within[0]) == within[1]
+    values = frame.filter(keep)[outcome].cast(pl.Float64, strict=False).drop_nulls()
+    return values.filter(values > 0).to_numpy()
 
 
 # -- durability of the app under SIGKILL ----------------------------------------------------
@@ -79,8 +96,10 @@ CHILD_CODE = textwrap.dedent(
     import time
     from pathlib import Path
 
-    from foldsift.tui.app import make_app
+    from foldsift.tui.app import FoldsiftApp
     from foldsift.tui.screens.dialogs import NoteScreen
+    from foldsift.tui.screens.review import ReviewScreen
+    from foldsift.tui.session import SessionOptions
 
     data, reviews, note = Path(sys.argv[1]), Path(sys.argv[2]), sys.argv[3]
 
@@ -94,12 +113,14 @@ CHILD_CODE = textwrap.dedent(
 
 
     async def main():
-        app = make_app(data, reviews=reviews, export_dir=data.parent)
+        options = SessionOptions(data, reviews_path=reviews)
+        app = FoldsiftApp(options, export_dir=data.parent)
         async with app.run_test(size=(120, 36)) as pilot:
             await app.workers.wait_for_complete()
             await pilot.pause()
-            await wait_for(pilot, lambda: app.store is not None, "the scan")
-            lst = app.query_one("#list")
+            await wait_for(pilot, lambda: isinstance(app.screen, ReviewScreen), "the scan")
+            screen = app.screen
+            lst = screen.query_one("#list")
             await pilot.press("down", "down")
             key = lst.current_key
             await pilot.press("space", "2", "n")
@@ -109,7 +130,7 @@ CHILD_CODE = textwrap.dedent(
             await wait_for(pilot, lambda: not isinstance(app.screen, NoteScreen), "editor")
 
             def shown_state():
-                row = app.base.filter(app.base["key"] == key).row(0, named=True)
+                row = screen.session.row(key)
                 return row["flagged"], row["decision"], row["note"]
 
             await wait_for(pilot, lambda: shown_state() == (True, "doubt", note), "state")
@@ -203,16 +224,19 @@ async def test_key_capital_b_cross_checks_every_shown_comparison(
         await filter_by_typing(app, pilot, "copper")
         keys = set(shown(app)["key"])
         assert keys == expected
-        assert app.robust == {}
+        checks = session(app).checks
+        assert checks == {}
         await pilot.press("B")
         await app.workers.wait_for_complete()
-        await until(pilot, lambda: len(app.robust) == len(keys), "every shown cross-check")
+        await until(pilot, lambda: len(checks) == len(keys), "every shown cross-check")
         await pilot.pause()
-        assert set(app.robust) == keys, "only and all the shown comparisons"
+        assert set(checks) == keys, "only and all the shown comparisons"
         assert f"cross-checks done for {len(keys)} comparison(s)" in status(app)
-        exported = app.export_frame("shown")
-        result = app.result
+        await export_via_dialog(app, pilot, rows="shown", name="copper")
+        target = tmp_path / "copper.csv"
+        await until(pilot, lambda: target.exists(), "export of the shown rows")
 
+    exported = pl.read_csv(target)
     assert set(exported["key"]) == keys
     columns = ("boot_median_ratio_low", "boot_median_ratio_high", "hl_ratio", "mann_whitney_p")
     for column in columns:
@@ -227,8 +251,8 @@ async def test_key_capital_b_cross_checks_every_shown_comparison(
 
     # Independent reference for one row: scipy on the two groups' usable values.
     row = exported.sort("key").row(0, named=True)
-    a = usable_values(result, row["grouping"], row["level_a"], row["outcome"])
-    b = usable_values(result, row["grouping"], row["level_b"], row["outcome"])
+    a = usable_values(demo_path(), row["grouping"], row["level_a"], row["outcome"])
+    b = usable_values(demo_path(), row["grouping"], row["level_b"], row["outcome"])
     assert (a.size, b.size) == (row["n_a"], row["n_b"])
     reference = sps.mannwhitneyu(b, a, alternative="two-sided").pvalue
     assert math.isclose(row["mann_whitney_p"], reference, rel_tol=1e-12), (row, reference)
@@ -245,16 +269,90 @@ async def test_key_b_cross_checks_the_highlighted_comparison_only(tmp_path: Path
         assert "press b" in sentence(app), "no cross-checks before the key"
         await pilot.press("b")
         await app.workers.wait_for_complete()
-        await until(pilot, lambda: key in app.robust, "cross-check of the highlighted row")
+        checks = session(app).checks
+        await until(pilot, lambda: key in checks, "cross-check of the highlighted row")
         await until(pilot, lambda: "press b" not in sentence(app), "detail shows the check")
-        assert set(app.robust) == {key}
-        check = app.robust[key]
+        assert set(checks) == {key}
+        check = checks[key]
         text = sentence(app)
         lines = [line for line in text.splitlines() if line.startswith("Hodges-Lehmann")]
         assert len(lines) == 1, text
         assert ratio_text(check.hl_ratio) in lines[0]
         assert "Mann-Whitney" in lines[0]
         assert "cross-checks done for 1 comparison(s)" in status(app)
+
+
+#: The cross-check columns of an export and the RobustCheck field each one holds.
+CHECK_COLUMNS = {
+    "boot_median_ratio_low": "median_ratio_ci_low",
+    "boot_median_ratio_high": "median_ratio_ci_high",
+    "hl_ratio": "hl_ratio",
+    "hl_ci_low": "hl_ci_low",
+    "hl_ci_high": "hl_ci_high",
+    "mann_whitney_p": "mann_whitney_p",
+}
+
+
+async def test_cross_checks_of_the_app_equal_those_of_the_command_line(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """`b` on a row, then an export of it, gives the very numbers a fresh session computes
+    for that row and `foldsift scan --robust` writes: one engine, one seeding rule."""
+    from foldsift.tui.cli import main as cli_main
+
+    async with running(tmp_path) as (app, pilot):
+        await pilot.press("down", "down", "down", "down")
+        key = listing(app).current_key
+        await pilot.press("b")
+        await until(pilot, lambda: key in session(app).checks, "cross-check of the row")
+        await until(pilot, lambda: "press b" not in sentence(app), "detail shows the check")
+        detail = sentence(app)
+        await pilot.press("space")
+        await export_via_dialog(app, pilot, rows="flagged", name="checked")
+        target = tmp_path / "checked.csv"
+        await until(pilot, lambda: target.exists(), "export of the flagged row")
+    exported = pl.read_csv(target).row(0, named=True)
+    assert exported["key"] == key
+
+    fresh = ReviewSession.open(SessionOptions(demo_path(), reviews_path=tmp_path / "new.sqlite"))
+    try:
+        assert fresh.cross_check(fresh.rows.filter(pl.col("key") == key)) == 1
+        check = fresh.checks[key]
+    finally:
+        fresh.close()
+    scanned = tmp_path / "scan.csv"
+    assert cli_main(["scan", str(demo_path()), "--robust", "--out", str(scanned)]) == 0
+    capsys.readouterr()
+    from_scan = pl.read_csv(scanned).filter(pl.col("key") == key).row(0, named=True)
+    for column, field in CHECK_COLUMNS.items():
+        value = getattr(check, field)
+        assert math.isfinite(value), (column, value)
+        assert exported[column] == value, (column, exported[column], value)
+        assert from_scan[column] == value, (column, from_scan[column], value)
+    # The detail pane shows the same interval, written by the one formatter.
+    low, high = check.median_ratio_ci_low, check.median_ratio_ci_high
+    assert interval_text(low, high) in detail
+
+
+async def test_export_of_decided_rows(tmp_path: Path) -> None:
+    """The export dialog offers the rows with a decision; unflagged ones count too."""
+    async with running(tmp_path) as (app, pilot):
+        await pilot.press("1", "down", "down", "3", "down", "space")
+        decided = set(session(app).rows.filter(pl.col("decision").is_not_null())["key"])
+        assert len(decided) == 2
+        await pilot.press("x")
+        await until(pilot, lambda: isinstance(app.screen, ExportScreen), "export dialog")
+        label = str(app.screen.query_one("#rows-decided").label)
+        assert "decision (2)" in label, label
+        await pilot.press("escape")
+        await until(pilot, lambda: isinstance(app.screen, ReviewScreen), "dialog closed")
+        await export_via_dialog(app, pilot, rows="decided", name="decided")
+        target = tmp_path / "decided.csv"
+        await until(pilot, lambda: target.exists(), "export of the decided rows")
+        assert "exported 2 row(s)" in status(app)
+    exported = pl.read_csv(target)
+    assert set(exported["key"]) == decided
+    assert sorted(exported["decision"].to_list()) == ["drop", "keep"]
 
 
 # -- text search on readable outcome names --------------------------------------------------
@@ -290,7 +388,7 @@ async def test_key_z_cycles_the_pane_sizes(tmp_path: Path) -> None:
     def layout(app: FoldsiftApp) -> tuple[str | None, int, int]:
         on = [name for name in classes if app.screen.has_class(name)]
         assert len(on) <= 1, on
-        detail = app.query_one("#detail").region.height
+        detail = review(app).query_one("#detail").region.height
         return (on[0] if on else None), listing(app).region.height, detail
 
     async with running(tmp_path) as (app, pilot):
@@ -318,7 +416,7 @@ async def test_status_bar_names_the_review_file(tmp_path: Path) -> None:
         assert reviews.name in text
         assert str(reviews) in text
         # It is painted, not only held by the widget: some line of the bar shows it.
-        widget = app.query_one("#status", Static)
+        widget = review(app).query_one("#status")
         painted = [widget.render_line(y).text for y in range(widget.region.height)]
         assert any(reviews.name in line for line in painted), painted
 
@@ -327,14 +425,15 @@ def test_help_lists_every_key_of_the_app():
     """The help page names every key the app binds (issue: a help screen listing every key)."""
     import re
 
-    from foldsift.tui.app import FoldsiftApp, help_text
+    from foldsift.tui.screens.help import help_text
 
     # Only the key column counts: the bold part of each "- **keys** — what" line.
     keys = " ".join(
         re.findall(r"^- \*\*(.+?)\*\*", help_text().split("# Filter line")[0], flags=re.MULTILINE)
     )
     shown = {"slash": "/", "question_mark": "?"}
-    for binding in FoldsiftApp.BINDINGS:
+    for binding in [*FoldsiftApp.BINDINGS, *ReviewScreen.BINDINGS]:
+        assert isinstance(binding, Binding)
         for key in binding.key.split(","):
             name = shown.get(key, key)
             assert re.search(rf"(?<![\w]){re.escape(name)}(?![\w])", keys), (key, keys)
@@ -342,16 +441,13 @@ def test_help_lists_every_key_of_the_app():
 
 async def test_review_robust_option_cross_checks_everything_on_open(tmp_path: Path) -> None:
     """`foldsift review --robust` starts the cross-checks for every comparison once open."""
-    from foldsift.tui.app import make_app
-    from foldsift.tui.cli import build_parser
-
-    args = build_parser().parse_args(["review", str(demo_path()), "--robust"])
-    app = make_app(demo_path(), args, reviews=tmp_path / "r.sqlite", export_dir=tmp_path)
+    app = app_from_command_line(tmp_path, "--robust")
     async with app.run_test(size=SIZE) as pilot:
-        await until(pilot, lambda: app.result is not None, "scan", timeout=30)
-        await until(pilot, lambda: len(app.robust) == app.base.height, "cross-checks", 60)
+        await until(pilot, lambda: is_open(app), "scan", timeout=30)
+        checks, rows = session(app).checks, session(app).rows
+        await until(pilot, lambda: len(checks) == rows.height, "cross-checks", 60)
         await pilot.pause()
-        assert set(app.robust) == set(app.base["key"])
+        assert set(checks) == set(rows["key"])
         assert "cross-checks done" in status(app)
 
 
@@ -366,6 +462,16 @@ async def test_change_column_sorts_on_the_size_of_the_change(tmp_path: Path) -> 
         assert sizes == sorted(sizes, reverse=True)
         top = shown(app)["ratio"].head(10).to_list()
         assert min(top) < 1 < max(top), "decreases and increases rank together"
+
+
+def app_from_command_line(tmp_path: Path, *options: str) -> FoldsiftApp:
+    """The app as ``foldsift review`` builds it from these options (demo data, the review
+    file in tmp_path)."""
+    from foldsift.tui.cli import build_parser, options_from
+
+    words = ["review", str(demo_path()), "--reviews", str(tmp_path / "r.sqlite"), *options]
+    args = build_parser().parse_args(words)
+    return FoldsiftApp(options_from(args), args.robust, export_dir=tmp_path)
 
 
 def _column_x(title: str) -> int:
@@ -389,33 +495,30 @@ async def test_keys_typed_right_after_slash_land_in_the_filter(tmp_path: Path) -
         burst = [("slash", "/")] + [(ch, ch) for ch in "copper"]
         for key, character in burst:  # all queued at once, as a terminal delivers them
             app.post_message(events.Key(key, character))
-        await until(pilot, lambda: app.filter_text == "copper", "burst typed into the filter")
-        assert isinstance(app.focused, Input)
+        line = review(app).query_one("#filter", Input)
+        await until(pilot, lambda: line.value == "copper", "burst typed into the filter")
+        await until(pilot, lambda: "filter copper" in status(app), "the filter applied")
+        assert app.focused is line
         assert all("copper" in key for key in shown(app)["key"])
 
 
 async def test_review_within_strata(tmp_path: Path) -> None:
     """`review --within season` lists the comparisons inside each season, draws their
     charts from that season's rows and says so in the sentence and the list."""
-    from foldsift.tui.app import make_app
-    from foldsift.tui.cli import build_parser
-
-    args = build_parser().parse_args(["review", str(demo_path()), "--within", "season"])
-    app = make_app(demo_path(), args, reviews=tmp_path / "r.sqlite", export_dir=tmp_path)
+    app = app_from_command_line(tmp_path, "--within", "season")
     async with app.run_test(size=SIZE) as pilot:
-        await until(pilot, lambda: app.result is not None, "scan", timeout=30)
-        await pilot.pause(0.2)
+        await until(pilot, lambda: ready(app), "scan", timeout=30)
         row = current(app)
-        assert " within season=" in row["grouping"]
+        assert (row["grouping"], row["within"]) == ("field", "season")
         assert "within season" in sentence(app)
-        assert "field·" in listing(app).render_line(1).text
-        season = row["grouping"].rpartition("=")[2]
-        used = app.result.used
-        expected = used.filter((pl.col("season") == season) & (pl.col("field") == row["level_a"]))[
-            row["outcome"] + USED
-        ].drop_nulls()
-        values = app._values.values(row["grouping"], row["level_a"], row["outcome"])
-        assert sorted(values.tolist()) == sorted(expected.to_list())
+        assert f"field·{row['stratum']}" in listing(app).render_line(1).text
+        # The charts' values are that season's rows of the data file.
+        a, b = session(app).group_values(row)
+        season = ("season", row["stratum"])
+        for values, level in ((a, row["level_a"]), (b, row["level_b"])):
+            expected = usable_values(demo_path(), "field", level, row["outcome"], season)
+            assert sorted(values.tolist()) == sorted(expected.tolist())
+        assert (a.size, b.size) == (row["n_a"], row["n_b"])
 
 
 async def test_huge_values_do_not_crash_the_charts(tmp_path: Path) -> None:
@@ -423,11 +526,10 @@ async def test_huge_values_do_not_crash_the_charts(tmp_path: Path) -> None:
     data = tmp_path / "huge.csv"
     data.write_text("site,v\na,1e308\na,2\na,3\nb,4\nb,5\nb,6\n")
     async with running(tmp_path, data) as (app, pilot):
-        app._show_plots()
-        await pilot.pause()
-        text = str(app.query_one("#plots", Static).render())
-        assert "too large to draw" in text
+        plots = review(app).query_one("#plots", Static)
+        await until(pilot, lambda: "too large to draw" in str(plots.render()), "charts drawn")
         assert app.error_text is None
+        assert app.is_running
 
 
 async def test_ctrl_q_in_the_note_editor_keeps_the_note(tmp_path: Path) -> None:
@@ -457,4 +559,33 @@ async def test_unflagging_under_the_flagged_filter_keeps_the_row(tmp_path: Path)
         await pilot.press("space")
         await pilot.pause()
         assert current(app)["key"] == first and current(app)["flagged"]
-        assert app.store.get(second).flagged
+        assert session(app).store.get(second).flagged
+
+
+async def test_summary_table_opens_without_cross_checks_or_charts(tmp_path: Path) -> None:
+    """A summary table has no raw values: the list and facts show, `b` and `B` are not
+    offered and start nothing, and the charts say there is nothing to draw."""
+    data = tmp_path / "summary.csv"
+    data.write_text(
+        "grouping,level,outcome,n,mean_log,sd_log\n"
+        "site,north,lead,12,1.2,0.5\n"
+        "site,south,lead,10,1.9,0.6\n"
+    )
+    options = SessionOptions(data, summary=True, reviews_path=tmp_path / "r.sqlite")
+    app = FoldsiftApp(options, export_dir=tmp_path)
+    async with app.run_test(size=SIZE) as pilot:
+        await until(pilot, lambda: ready(app), "summary table open")
+        assert shown(app).height == 1
+        plots = review(app).query_one("#plots", Static)
+        await until(pilot, lambda: "no usable values" in str(plots.render()), "charts")
+        await pilot.press("b", "B")
+        await pilot.pause()
+        assert session(app).checks == {}
+        assert not app.workers, "no cross-check worker started"
+        footer_keys = {binding.action for _, binding, enabled, _ in app.active_bindings.values()}
+        assert "robust" in footer_keys
+        assert not any(
+            enabled
+            for _, binding, enabled, _ in app.active_bindings.values()
+            if binding.action in ("robust", "robust_shown")
+        )

@@ -162,7 +162,9 @@ def test_a_scan_writes_no_file_and_opens_no_database(tmp_path):
     data = tmp_path / "t.csv"
     rows = ["site,season,lead"] + [
         f"{s},{season},{1.3 * v % 7 + 0.5:.2f}"
-        for s, season, v in zip("abab" * 6, ["dry", "dry", "wet", "wet"] * 6, range(1, 25), strict=True)
+        for s, season, v in zip(
+            "abab" * 6, ["dry", "dry", "wet", "wet"] * 6, range(1, 25), strict=True
+        )
     ]
     data.write_text("\n".join(rows) + "\n")
     probe = AUDIT_PROBE.replace(

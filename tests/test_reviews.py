@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import os
 import selectors
+import shutil
 import signal
 import sqlite3
 import subprocess
 import sys
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import polars as pl
@@ -20,6 +23,7 @@ from foldsift.tui.store import (
     REVIEW_SCHEMA,
     Review,
     ReviewStore,
+    ReviewStoreBusy,
     ReviewStoreError,
     default_review_path,
 )
@@ -67,6 +71,9 @@ def test_on_earlier_data_when_fingerprint_changes(tmp_path: Path) -> None:
         store.set_flag("k2", True)
 
     with ReviewStore(path, "new") as store:
+        # A session reads every review before it changes one; a change to a review this
+        # store never read is refused as a conflict (tests/test_store_conflicts.py).
+        store.frame()
         stale = store.get("k1")
         assert stale is not None
         assert stale.fingerprint == "old"
@@ -262,11 +269,40 @@ def test_newer_schema_version_raises(tmp_path: Path) -> None:
         ReviewStore(path, "fp")
 
 
-def test_missing_parent_folder_is_created(tmp_path: Path) -> None:
-    path = tmp_path / "deep" / "er" / "r.sqlite"
-    with ReviewStore(path, "fp") as store:
+def test_missing_parent_folder_is_refused_unless_asked(tmp_path: Path) -> None:
+    """A mistyped folder in a path the user gave is reported, and nothing is created."""
+    path = tmp_path / "reveiws" / "er" / "r.sqlite"
+    with pytest.raises(ReviewStoreError, match="does not exist") as info:
+        ReviewStore(path, "fp")
+    message = str(info.value)
+    assert str(tmp_path / "reveiws" / "er") in message
+    assert "\n" not in message
+    assert list(tmp_path.iterdir()) == []
+    # The caller may allow it (the default location under the XDG data folder does).
+    with ReviewStore(path, "fp", create_folders=True) as store:
+        assert store.created
         store.set_flag("k", True)
     assert path.is_file()
+
+
+def test_parent_that_is_a_file_is_refused(tmp_path: Path) -> None:
+    blocker = tmp_path / "plain"
+    blocker.write_text("x")
+    with pytest.raises(ReviewStoreError, match="is not a folder"):
+        ReviewStore(blocker / "r.sqlite", "fp", create_folders=True)
+
+
+def test_created_only_when_a_new_store_starts(tmp_path: Path) -> None:
+    path = tmp_path / "r.sqlite"
+    with ReviewStore(path, "fp") as store:
+        assert store.created
+        store.set_flag("k", True)
+    with ReviewStore(path, "fp") as store:
+        assert not store.created
+    empty = tmp_path / "empty.sqlite"
+    empty.touch()
+    with ReviewStore(empty, "fp") as store:
+        assert store.created
 
 
 @pytest.mark.skipif(
@@ -300,8 +336,8 @@ def test_unwritable_folder_raises(tmp_path: Path, monkeypatch: pytest.MonkeyPatc
 
 
 def test_review_equality_ignores_store_fingerprint() -> None:
-    a = Review("k", True, None, "", "fp", "t", store_fingerprint="fp")
-    b = Review("k", True, None, "", "fp", "t", store_fingerprint="other")
+    a = Review("k", True, None, "", "fp", "t", 3, store_fingerprint="fp")
+    b = Review("k", True, None, "", "fp", "t", 3, store_fingerprint="other")
     assert a == b
     assert not a.on_earlier_data
     assert b.on_earlier_data
@@ -351,8 +387,10 @@ def test_default_path_falls_back_to_xdg(tmp_path: Path, monkeypatch: pytest.Monk
     assert other != path
     assert default_review_path(data) == path
 
-    # The fallback location is usable as a store (its folders get created).
-    with ReviewStore(path, "fp") as store:
+    # The fallback location is usable as a store: opening the default creates its folders.
+    with ReviewStore.open_default(data, "fp") as store:
+        assert store.path == path
+        assert store.created
         store.set_flag("k", True)
     assert path.is_file()
 
@@ -380,6 +418,7 @@ from foldsift.tui.store import ReviewStore
 
 path, action, key, value = sys.argv[1:5]
 store = ReviewStore(path, "fp-child")
+store.frame()  # what a session does first; a change to an unread review is a conflict
 if action == "flag":
     store.set_flag(key, value == "1")
 elif action == "decision":
@@ -478,3 +517,289 @@ def test_default_review_path_avoids_installed_packages(tmp_path, monkeypatch):
     path = default_review_path(data)
     assert path.is_relative_to(tmp_path / "xdg" / "foldsift" / "reviews")
     assert path.name.startswith("survey-")
+
+
+# -- read-only opening ---------------------------------------------------------------------
+
+
+def _filled_store(path: Path, notes: int = 3) -> None:
+    with ReviewStore(path, "fp") as store:
+        for index in range(notes):
+            store.set_note(f"key{index:04d}", f"note {index} " + NOTE)
+        store.set_flag("key0000", True)
+
+
+def _read_only_change_calls(store: ReviewStore) -> list[tuple[str, object]]:
+    return [
+        ("set_flag", lambda: store.set_flag("key0000", False)),
+        ("toggle_flag", lambda: store.toggle_flag("new")),
+        ("set_decision", lambda: store.set_decision("key0001", "keep")),
+        ("set_note", lambda: store.set_note("key0001", "")),
+        ("rename_keys", lambda: store.rename_keys({"key0001": "other"})),
+    ]
+
+
+def test_read_only_reads_and_never_changes_the_file(tmp_path: Path) -> None:
+    # SQLite's URI documentation: mode=ro opens the database read-only.
+    path = tmp_path / "r.sqlite"
+    _filled_store(path)
+    with ReviewStore(path, "fp") as writable:
+        expected = writable.all()
+    before = path.read_bytes()
+    path.chmod(0o444)
+    try:
+        with ReviewStore(path, "fp", read_only=True) as store:
+            assert store.read_only
+            assert not store.created
+            assert store.all() == expected
+            assert store.get("key0002") == expected[2]
+            assert store.frame()["note"].to_list() == [r.note for r in expected]
+            for name, call in _read_only_change_calls(store):
+                with pytest.raises(ReviewStoreError, match="opened read-only") as info:
+                    call()  # type: ignore[operator]
+                assert str(path) in str(info.value), name
+            assert store.all() == expected
+    finally:
+        path.chmod(0o644)
+    assert path.read_bytes() == before
+
+
+def test_read_only_missing_file_creates_nothing(tmp_path: Path) -> None:
+    path = tmp_path / "missing" / "r.sqlite"
+    with pytest.raises(ReviewStoreError, match="no such review file") as info:
+        ReviewStore(path, "fp", read_only=True)
+    assert str(path) in str(info.value)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_read_only_zero_length_file_is_an_empty_store(tmp_path: Path) -> None:
+    # SQLite treats a zero-length file as an empty database; reading it must not create tables.
+    path = tmp_path / "empty.sqlite"
+    path.touch()
+    with ReviewStore(path, "fp", read_only=True) as store:
+        assert store.all() == []
+        assert store.get("k") is None
+        assert store.frame().height == 0
+    assert path.stat().st_size == 0
+
+
+@contextmanager
+def _unwritable_folder(folder: Path) -> Iterator[None]:
+    """Make ``folder`` and its files unwritable; for root, whom permission bits do not stop,
+    with the immutable attribute (chattr +i) where the file system has it."""
+    files = sorted(folder.iterdir())
+    locked: list[Path] = []
+    for item in files:
+        item.chmod(0o444)
+    folder.chmod(0o555)
+    try:
+        if os.geteuid() == 0 and shutil.which("chattr"):
+            for item in [*files, folder]:
+                done = subprocess.run(["chattr", "+i", str(item)], capture_output=True)
+                if done.returncode == 0:
+                    locked.append(item)
+        probe = folder / "probe"
+        try:
+            probe.touch()
+        except OSError:
+            pass
+        else:
+            probe.unlink()
+            pytest.skip("cannot make a folder unwritable here")
+        yield
+    finally:
+        for item in reversed(locked):
+            subprocess.run(["chattr", "-i", str(item)], check=True)
+        folder.chmod(0o755)
+        for item in files:
+            item.chmod(0o644)
+
+
+@pytest.mark.skipif(os.name != "posix", reason="needs POSIX permissions")
+def test_read_only_in_an_unwritable_folder(tmp_path: Path) -> None:
+    # SQLite's documentation on read-only WAL databases: a WAL file opens read-only only when
+    # its -shm and -wal files exist or can be created, or when it is opened as immutable.
+    folder = tmp_path / "shared"
+    folder.mkdir()
+    path = folder / "r.sqlite"
+    _filled_store(path)
+    with ReviewStore(path, "fp") as writable:
+        expected = writable.all()
+    assert sorted(p.name for p in folder.iterdir()) == ["r.sqlite"]  # closed cleanly
+    before = path.read_bytes()
+    with _unwritable_folder(folder), ReviewStore(path, "fp", read_only=True) as store:
+        assert store.all() == expected
+        with pytest.raises(ReviewStoreError, match="opened read-only"):
+            store.set_note("key0001", "changed")
+    assert path.read_bytes() == before
+    assert sorted(p.name for p in folder.iterdir()) == ["r.sqlite"]
+
+
+@pytest.mark.skipif(os.name != "posix", reason="needs POSIX permissions")
+def test_read_only_refuses_changes_it_cannot_see(tmp_path: Path) -> None:
+    """A non-empty -wal file without its -shm in an unwritable folder holds changes that an
+    immutable reading would miss: refuse rather than show old reviews."""
+    source = tmp_path / "live.sqlite"
+    ReviewStore(source, "fp").close()
+    # SQLite's WAL documentation: the -wal file is folded into the database and removed when
+    # the last connection closes, so a second connection that stays open keeps it there.
+    keeper = sqlite3.connect(source, isolation_level=None)
+    try:
+        keeper.execute("SELECT COUNT(*) FROM reviews").fetchone()
+        with ReviewStore(source, "fp") as store:
+            store.set_note("k", "only in the -wal file")
+        folder = tmp_path / "copy"
+        folder.mkdir()
+        shutil.copyfile(source, folder / "r.sqlite")
+        shutil.copyfile(f"{source}-wal", folder / "r.sqlite-wal")
+    finally:
+        keeper.close()
+    assert (folder / "r.sqlite-wal").stat().st_size > 0
+    with _unwritable_folder(folder), pytest.raises(ReviewStoreError, match="r.sqlite-wal") as info:
+        ReviewStore(folder / "r.sqlite", "fp", read_only=True)
+    assert "\n" not in str(info.value)
+    # Where SQLite can write its files, the same copy reads the change.
+    with ReviewStore(folder / "r.sqlite", "fp", read_only=True) as store:
+        review = store.get("k")
+    assert review is not None and review.note == "only in the -wal file"
+
+
+# -- another writer holding the lock -------------------------------------------------------
+
+
+@contextmanager
+def _held_write_lock(path: Path) -> Iterator[sqlite3.Connection]:
+    """Another connection inside BEGIN IMMEDIATE: it holds the write lock until it ends
+    (SQLite's documentation of BEGIN IMMEDIATE)."""
+    other = sqlite3.connect(path, isolation_level=None)
+    try:
+        other.execute("BEGIN IMMEDIATE")
+        yield other
+    finally:
+        if other.in_transaction:
+            other.execute("ROLLBACK")
+        other.close()
+
+
+def _assert_busy_message(error: ReviewStoreError, path: Path) -> None:
+    message = str(error)
+    assert isinstance(error, ReviewStoreBusy)
+    assert str(path) in message
+    assert "busy" in message and "another program" in message and "try again" in message
+    assert "choose another" not in message
+    assert "\n" not in message
+
+
+def test_change_while_another_connection_writes_is_busy_quickly(tmp_path: Path) -> None:
+    path = tmp_path / "r.sqlite"
+    with ReviewStore(path, "fp") as store:
+        store.set_flag("k", True)
+        with _held_write_lock(path):
+            # SQLite's WAL documentation: readers do not wait for a writer.
+            assert store.get("k") is not None
+            for change in (
+                lambda: store.set_note("k", "lost?"),
+                lambda: store.toggle_flag("k"),
+                lambda: store.rename_keys({"k": "k2"}),
+            ):
+                started = time.monotonic()
+                with pytest.raises(ReviewStoreBusy) as info:
+                    change()
+                # The default wait is about 0.25 s (SQLITE_BUSY after the busy timeout).
+                assert time.monotonic() - started < 2.0
+                _assert_busy_message(info.value, path)
+                assert "not saved" in str(info.value)
+        # Once the other writer is done, the same change goes through.
+        store.set_note("k", "saved")
+        review = store.get("k")
+    assert review is not None and review.note == "saved" and review.flagged
+
+
+def test_busy_timeout_is_how_long_a_change_waits(tmp_path: Path) -> None:
+    # Python's sqlite3 documentation: ``timeout`` is how long to wait for a lock to go away.
+    path = tmp_path / "r.sqlite"
+    ReviewStore(path, "fp").close()
+    with ReviewStore(path, "fp", busy_timeout=0.6) as store, _held_write_lock(path):
+        started = time.monotonic()
+        with pytest.raises(ReviewStoreBusy):
+            store.set_flag("k", True)
+        assert time.monotonic() - started >= 0.4
+    with pytest.raises(ValueError, match="busy_timeout"):
+        ReviewStore(path, "fp", busy_timeout=-1)
+
+
+def test_opening_while_another_connection_writes_says_busy(tmp_path: Path) -> None:
+    path = tmp_path / "new.sqlite"
+    path.touch()  # an empty database that still needs its tables
+    with _held_write_lock(path), pytest.raises(ReviewStoreBusy) as info:
+        ReviewStore(path, "fp")
+    _assert_busy_message(info.value, path)
+    with ReviewStore(path, "fp") as store:
+        store.set_flag("k", True)
+
+
+def test_opening_a_ready_store_while_another_writes_can_read(tmp_path: Path) -> None:
+    path = tmp_path / "r.sqlite"
+    _filled_store(path)
+    with _held_write_lock(path), ReviewStore(path, "fp") as store:
+        assert [r.key for r in store.all()] == ["key0000", "key0001", "key0002"]
+
+
+# -- damaged pages -------------------------------------------------------------------------
+
+
+def _page_size(path: Path) -> int:
+    with sqlite3.connect(path) as conn:
+        size: int = conn.execute("PRAGMA page_size").fetchone()[0]
+    return size
+
+
+def _damage_a_page(path: Path) -> None:
+    # SQLite's file format documentation: page 1 holds the header and the schema; a page
+    # whose b-tree header byte is not a page type is damaged.
+    size = _page_size(path)
+    pages = path.stat().st_size // size
+    assert pages > 4
+    with path.open("r+b") as fh:
+        fh.seek(size * (pages // 2))
+        fh.write(b"\xff" * size)
+
+
+def _damage_note_text(path: Path) -> None:
+    data = path.read_bytes()
+    at = data.index(b"note 150 ")
+    with path.open("r+b") as fh:
+        fh.seek(at)
+        fh.write(b"\xff" * 12)
+
+
+@pytest.mark.parametrize("damage", [_damage_a_page, _damage_note_text])
+def test_damaged_pages_give_one_line_errors(tmp_path: Path, damage: object) -> None:
+    path = tmp_path / "r.sqlite"
+    _filled_store(path, notes=300)
+    keys = [f"key{index:04d}" for index in range(300)]
+    damage(path)  # type: ignore[operator]
+
+    def check(error: ReviewStoreError, change: bool) -> None:
+        message = str(error)
+        assert str(path) in message and "damaged" in message, message
+        assert "restore it from a copy" in message and "\n" not in message
+        assert ("not saved" in message) == change
+
+    with ReviewStore(path, "fp") as store:
+        for read in (store.all, store.frame):
+            with pytest.raises(ReviewStoreError) as info:
+                read()
+            check(info.value, change=False)
+        unreadable = []
+        for key in keys:
+            try:
+                store.get(key)
+            except ReviewStoreError as error:
+                check(error, change=False)
+                unreadable.append(key)
+        assert unreadable
+        for key in unreadable:
+            with pytest.raises(ReviewStoreError) as info:
+                store.set_note(key, "replacement")
+            check(info.value, change=True)

@@ -8,10 +8,10 @@ from collections.abc import Callable
 from pathlib import Path
 
 from foldsift.stats.equivalence import DEFAULT_BAND, parse_band
-from foldsift.stats.load import InputError
+from foldsift.stats.load import InputError, ReadOptions
 from foldsift.stats.policy import ValuePolicy
 from foldsift.stats.robust import DEFAULT_RESAMPLES
-from foldsift.stats.scan import Reference, ScanResult, ScanSettings
+from foldsift.stats.scan import DEFAULT_MAX_COMPARISONS, Reference, ScanResult, ScanSettings
 from foldsift.stats.vocabulary import (
     CENSORED_POLICIES,
     FAMILIES,
@@ -69,6 +69,18 @@ def _ratio(text: str) -> float:
     return value
 
 
+def _whole_number(text: str) -> int:
+    try:
+        value = int(text.replace("_", "").replace(",", ""))
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"{text!r} is not a whole number; use e.g. 500000"
+        ) from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{text}: give at least 1")
+    return value
+
+
 def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = True) -> None:
     if data_required:
         parser.add_argument("data", type=Path, help="CSV, TSV or Parquet file, one row per sample")
@@ -83,6 +95,25 @@ def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = T
         "--within",
         metavar="COL",
         help="compare inside each level of this grouping column (strata), not pooled over it",
+    )
+    roles.add_argument(
+        "--max-comparisons",
+        type=_whole_number,
+        default=DEFAULT_MAX_COMPARISONS,
+        metavar="N",
+        help=f"refuse a scan of more comparisons than N (default {DEFAULT_MAX_COMPARISONS:,})",
+    )
+    reading = parser.add_argument_group("reading the file")
+    reading.add_argument(
+        "--encoding",
+        metavar="NAME",
+        help="text encoding of the file, e.g. utf-8, cp1252, latin-1 (default: UTF-8, "
+        "else Windows-1252 when every byte fits it)",
+    )
+    reading.add_argument(
+        "--decimal",
+        choices=("comma", "point"),
+        help="the decimal mark of every column, where the entries leave it open (1,234)",
     )
     _add_method_options(parser.add_argument_group("method"))
 
@@ -157,6 +188,7 @@ def settings_from(args: argparse.Namespace) -> ScanSettings:
         band=args.band,
         target_ratio=args.target_ratio,
         within=args.within,
+        max_comparisons=args.max_comparisons,
     )
 
 
@@ -180,6 +212,7 @@ def options_from(args: argparse.Namespace) -> SessionOptions:
         reviews_path=getattr(args, "reviews", None),
         resamples=getattr(args, "resamples", DEFAULT_RESAMPLES),
         allow_formulas=bool(getattr(args, "allow_formulas", False)),
+        reading=ReadOptions(encoding=args.encoding, decimal=args.decimal),
     )
 
 
@@ -243,6 +276,8 @@ def _describe(result: ScanResult) -> None:
             f"foldsift: warning: {name}: {count} entries were not numbers and were read as missing",
             file=sys.stderr,
         )
+    for note in source.notes:
+        print(f"foldsift: note: {note}", file=sys.stderr)
 
 
 def command_scan(args: argparse.Namespace) -> int:

@@ -1,18 +1,7 @@
 """The filter line: plain words and conditions turned into one polars expression.
 
-This module imports nothing from Textual, so it is tested without a terminal.
-
-Words, separated by spaces; a row is shown when all of them hold:
-
-- any plain word: text search in outcome, grouping and level names (case-insensitive)
-- ``q<0.05``, ``p<=0.01``, ``holm<0.05``, ``ratio>2``, ``ratio<0.5``, ``n>=10``: numeric conditions
-- ``outside:0.8,1.25``: ratio outside the band; ``inside:0.8,1.25``: inside it
-- ``warned`` (any warning), ``clean`` (none), ``warn:log-skew`` (that warning)
-- ``flagged``, ``unflagged``, ``undecided``, ``keep`` / ``doubt`` / ``drop`` (decision),
-  ``noted`` (has a note), ``earlier`` (review made on an earlier version of the data)
-- ``class:equivalent``, or the class name alone (``different``, ``minor-difference``,
-  ``equivalent``, ``inconclusive``)
-- a leading ``-`` negates a word: ``-warn:small-n``
+This module imports nothing from Textual, so it is tested without a terminal. The words it
+reads are listed in ``FILTER_WORDS``, which the app's help shows as it is.
 """
 
 from __future__ import annotations
@@ -44,6 +33,23 @@ _OPERATORS = {
     ">=": lambda c, v: c >= v,
     "=": lambda c, v: c == v,
 }
+
+
+#: What the filter line reads, as the help shows it (Markdown).
+FILTER_WORDS = """\
+Words, separated by spaces; a row is shown when all of them hold:
+
+- any plain word: text search in outcome, grouping, stratum and level names (case-insensitive)
+- `q<0.05`, `p<=0.01`, `holm<0.05`, `ratio>2`, `ratio<0.5`, `change>50`, `n>=10` (the smaller
+  group), `fold<3` (the CI's upper/lower ratio): numeric conditions
+- `outside:0.8,1.25`: ratio outside the band; `inside:0.8,1.25`: inside it
+- `warned` (any warning), `clean` (none), `warn:log-skew` (that warning)
+- `flagged`, `unflagged`, `undecided`, `keep` / `doubt` / `drop` (decision),
+  `noted` (has a note), `earlier` (review made on an earlier version of the data)
+- `class:equivalent`, or the class name alone (`different`, `minor-difference`,
+  `equivalent`, `inconclusive`)
+- a leading `-` negates a word: `-warn:small-n`
+"""
 
 
 class FilterError(ValueError):

@@ -21,7 +21,7 @@ from foldsift.stats.columns import (
     earlier_key_expression,
     reviewed_row,
 )
-from foldsift.stats.load import InputError, load_table
+from foldsift.stats.load import InputError, ReadOptions, load_table
 from foldsift.stats.robust import (
     DEFAULT_RESAMPLES,
     DEFAULT_SEED,
@@ -38,7 +38,7 @@ from foldsift.stats.vocabulary import Decision
 
 from .export import join_reviews, write_export
 from .filtering import FilterError, parse_filter
-from .store import Review, ReviewStore, default_review_path
+from .store import Review, ReviewConflict, ReviewStore, default_review_path
 
 #: Which rows an export writes: flagged ones, ones with a decision, the ones the filter
 #: shows, or all of them.
@@ -62,6 +62,7 @@ class SessionOptions:
     resamples: int = DEFAULT_RESAMPLES
     seed: int = DEFAULT_SEED
     allow_formulas: bool = False  # write text cells like "=1+1" unguarded
+    reading: ReadOptions = field(default_factory=ReadOptions)  # --encoding, --decimal
 
     @property
     def review_file(self) -> Path:
@@ -78,7 +79,12 @@ def scan(options: SessionOptions) -> ScanResult:
                 f"{options.data_path}: a summary table names its groupings and outcomes itself"
             )
         return scan_summary_table(options.data_path, options.settings)
-    table = load_table(options.data_path, groupings=options.groupings, outcomes=options.outcomes)
+    table = load_table(
+        options.data_path,
+        groupings=options.groupings,
+        outcomes=options.outcomes,
+        reading=options.reading,
+    )
     return run_scan(table, options.settings)
 
 
@@ -170,8 +176,19 @@ class ReviewSession:
     @classmethod
     def open(cls, options: SessionOptions) -> ReviewSession:
         """Scan the data and open its review file (InputError, ReviewStoreError on failure)."""
-        result = scan(options)
-        store = ReviewStore(options.review_file, result.source.fingerprint)
+        return cls.from_scan(options, scan(options))
+
+    @classmethod
+    def from_scan(cls, options: SessionOptions, result: ScanResult) -> ReviewSession:
+        """Open the review file for a finished scan (on the thread that will use it: SQLite
+        connections stay on the thread that made them). A path the user gave must be in an
+        existing folder; the default one is created under the user's data folder when
+        needed."""
+        fingerprint = result.source.fingerprint
+        if options.reviews_path is not None:
+            store = ReviewStore(options.reviews_path, fingerprint)
+        else:
+            store = ReviewStore.open_default(options.data_path, fingerprint)
         return cls(options, result, store)
 
     @classmethod
@@ -245,20 +262,30 @@ class ReviewSession:
 
     # -- reviewing -------------------------------------------------------------------------
     def toggle_flag(self, key: str) -> bool:
-        """Flip the flag; returns the new state. Saved before it returns."""
-        flagged = self.store.toggle_flag(key)
-        self._refresh(key)
-        return flagged
+        """Flip the flag; returns the new state. Saved before it returns.
+
+        Every change raises ``ReviewConflict`` (nothing saved, the row refreshed to what is
+        stored now) when another session changed the review since this one read it; the
+        same change made again then applies."""
+        flagged = self._change(key, lambda: self.store.toggle_flag(key))
+        return bool(flagged)
 
     def decide(self, key: str, decision: Decision | None) -> None:
         """Set the decision (None clears it). Saved before it returns."""
-        self.store.set_decision(key, decision)
-        self._refresh(key)
+        self._change(key, lambda: self.store.set_decision(key, decision))
 
     def set_note(self, key: str, text: str) -> None:
         """Replace the note (empty removes it). Saved before it returns."""
-        self.store.set_note(key, text)
+        self._change(key, lambda: self.store.set_note(key, text))
+
+    def _change(self, key: str, change: Callable[[], object]) -> object:
+        try:
+            outcome = change()
+        except ReviewConflict:
+            self._refresh(key)
+            raise
         self._refresh(key)
+        return outcome
 
     def review_values(self, key: str) -> dict[str, Any]:
         """The review columns of ``key`` as stored now."""

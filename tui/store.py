@@ -4,6 +4,11 @@ Every change is its own committed transaction with ``synchronous=FULL`` in WAL m
 change that a method has returned from survives the process being killed or the machine
 losing power. Rows remember the data fingerprint they were written against, which lets the
 app point out reviews that were made on an earlier version of the data.
+
+Every row also carries a version, taken from one counter per file that only ever grows, so
+a review that is deleted and written again never repeats a version. A store remembers the
+version it last read or wrote of each key; a change to a key that another session changed
+since then is refused with ``ReviewConflict`` instead of overwriting that session's work.
 """
 
 from __future__ import annotations
@@ -11,12 +16,13 @@ from __future__ import annotations
 import hashlib
 import os
 import sqlite3
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from collections.abc import Callable, Iterator, Mapping
+from contextlib import contextmanager, suppress
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from types import TracebackType
+from typing import Any, Literal
 
 import polars as pl
 
@@ -25,18 +31,25 @@ from foldsift.stats.vocabulary import DECISIONS, Decision
 
 __all__ = [
     "DECISIONS",
+    "DEFAULT_BUSY_TIMEOUT",
     "REVIEW_SCHEMA",
     "SCHEMA_VERSION",
     "Review",
+    "ReviewConflict",
     "ReviewStore",
+    "ReviewStoreBusy",
     "ReviewStoreError",
     "default_review_path",
 ]
 
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
-_REVIEW_COLUMNS = ("key", "flagged", "decision", "note", "fingerprint", "updated_at")
+#: Seconds a change waits for another writer to finish before it gives up as busy.
+DEFAULT_BUSY_TIMEOUT = 0.25
+
+_V1_COLUMNS = ("key", "flagged", "decision", "note", "fingerprint", "updated_at")
+_REVIEW_COLUMNS = (*_V1_COLUMNS, "version")
 
 _CREATE_REVIEWS = """
 CREATE TABLE IF NOT EXISTS reviews (
@@ -45,7 +58,8 @@ CREATE TABLE IF NOT EXISTS reviews (
     decision TEXT,
     note TEXT NOT NULL DEFAULT '',
     fingerprint TEXT NOT NULL,
-    updated_at TEXT NOT NULL
+    updated_at TEXT NOT NULL,
+    version INTEGER NOT NULL
 )
 """
 
@@ -56,25 +70,50 @@ CREATE TABLE IF NOT EXISTS meta (
 )
 """
 
+# SQLite adds a NOT NULL column only with a default; rows from version 1 all start at 1.
+_MIGRATE_V1 = "ALTER TABLE reviews ADD COLUMN version INTEGER NOT NULL DEFAULT 1"
+
 _UPSERT = """
-INSERT INTO reviews (key, flagged, decision, note, fingerprint, updated_at)
-VALUES (?, ?, ?, ?, ?, ?)
+INSERT INTO reviews (key, flagged, decision, note, fingerprint, updated_at, version)
+VALUES (?, ?, ?, ?, ?, ?, ?)
 ON CONFLICT(key) DO UPDATE SET
     flagged = excluded.flagged,
     decision = excluded.decision,
     note = excluded.note,
     fingerprint = excluded.fingerprint,
-    updated_at = excluded.updated_at
+    updated_at = excluded.updated_at,
+    version = excluded.version
 """
+
+_SET_META = "INSERT OR REPLACE INTO meta (name, value) VALUES (?, ?)"
 
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 
 # (flagged, decision, note): the reviewer-editable part of a row.
 _Fields = tuple[bool, Decision | None, str]
+# What opening has to do with the tables found in the file.
+_Action = Literal["ready", "create", "migrate"]
 
 
 class ReviewStoreError(ValueError):
-    """The review file cannot be opened or written; the message says which file and why."""
+    """The review file cannot be opened, read or written; the message says which file and why."""
+
+
+class ReviewStoreBusy(ReviewStoreError):
+    """Another connection holds the review file's write lock; trying again later may work."""
+
+
+class ReviewConflict(ReviewStoreError):
+    """The review of ``key`` was changed elsewhere since this store last read or wrote it.
+
+    Nothing was written. ``current`` is the review as it is stored now (None when it was
+    deleted); the store now counts it as seen, so repeating the same change applies it.
+    """
+
+    def __init__(self, message: str, key: str, current: Review | None) -> None:
+        super().__init__(message)
+        self.key = key
+        self.current = current
 
 
 @dataclass(frozen=True, slots=True)
@@ -87,6 +126,8 @@ class Review:
     note: str
     fingerprint: str
     updated_at: str
+    #: Grows on every change of this row; read-only stores of version-1 files report 0.
+    version: int
     # Not part of the stored row, so it takes no part in equality.
     store_fingerprint: str = field(repr=False, compare=False)
 
@@ -97,15 +138,66 @@ class Review:
 
 
 class ReviewStore:
-    """Reviews for one data set, stored in one SQLite file through one connection."""
+    """Reviews for one data set, stored in one SQLite file through one connection.
 
-    def __init__(self, path: Path | str, fingerprint: str) -> None:
+    ``create_folders`` lets opening create missing folders above the file; leave it False
+    for a path the user typed, so a typing mistake is reported instead of starting an empty
+    store somewhere unexpected. ``read_only`` opens without ever writing (every change then
+    raises ReviewStoreError). ``busy_timeout`` is how long, in seconds, a change waits for
+    another writer before raising ReviewStoreBusy.
+    """
+
+    def __init__(
+        self,
+        path: Path | str,
+        fingerprint: str,
+        *,
+        read_only: bool = False,
+        create_folders: bool = False,
+        busy_timeout: float = DEFAULT_BUSY_TIMEOUT,
+    ) -> None:
         if not isinstance(fingerprint, str) or not fingerprint:
             raise ValueError("fingerprint must be a non-empty string")
+        if isinstance(busy_timeout, bool) or not isinstance(busy_timeout, int | float):
+            raise TypeError("busy_timeout must be a number of seconds")
+        if not 0 <= busy_timeout < float("inf"):
+            raise ValueError("busy_timeout must be zero or a positive number of seconds")
         self._path = Path(path).expanduser()
         self._fingerprint = fingerprint
-        _check_openable(self._path)
-        self._conn: sqlite3.Connection | None = _connect(self._path)
+        self._read_only = bool(read_only)
+        # The version last read or written of each key; a missing key counts as absent.
+        self._seen: dict[str, int] = {}
+        if self._read_only:
+            _check_readable(self._path)
+            opened = _open_read_only(self._path, float(busy_timeout))
+        else:
+            _check_openable(self._path, create_folders=create_folders)
+            opened = _open_writable(self._path, float(busy_timeout))
+        self._conn: sqlite3.Connection | None = opened.conn
+        self._created = opened.created
+        self._has_table = opened.has_table
+        version = "version" if opened.versioned else "0"
+        self._select = f"SELECT {', '.join(_V1_COLUMNS)}, {version} FROM reviews"
+
+    @classmethod
+    def open_default(
+        cls,
+        data_path: Path | str,
+        fingerprint: str,
+        *,
+        read_only: bool = False,
+        busy_timeout: float = DEFAULT_BUSY_TIMEOUT,
+    ) -> ReviewStore:
+        """Open the store at ``default_review_path(data_path)``; only there, and only under
+        the XDG data folder, are missing folders created."""
+        path = default_review_path(Path(data_path))
+        return cls(
+            path,
+            fingerprint,
+            read_only=read_only,
+            create_folders=path.is_relative_to(_review_home()),
+            busy_timeout=busy_timeout,
+        )
 
     @property
     def path(self) -> Path:
@@ -117,6 +209,16 @@ class ReviewStore:
         """Fingerprint of the data currently loaded; stamped on every change."""
         return self._fingerprint
 
+    @property
+    def read_only(self) -> bool:
+        """True when the store was opened read-only; changes then raise ReviewStoreError."""
+        return self._read_only
+
+    @property
+    def created(self) -> bool:
+        """True when this opening started a new, empty store (the file was new or empty)."""
+        return self._created
+
     # -- changes -------------------------------------------------------------------------
 
     def set_flag(self, key: str, flagged: bool) -> None:
@@ -125,7 +227,7 @@ class ReviewStore:
         self._modify(key, lambda _f, decision, note: (value, decision, note))
 
     def toggle_flag(self, key: str) -> bool:
-        """Flip the flag of ``key`` and return the new state."""
+        """Flip the flag of ``key`` as stored now and return the new state."""
         # Read and write inside one transaction so two quick toggles cannot both read "off".
         flagged, _, _ = self._modify(key, lambda f, decision, note: (not f, decision, note))
         return flagged
@@ -144,30 +246,66 @@ class ReviewStore:
             raise TypeError(f"note must be a string, not {type(text).__name__}")
         self._modify(key, lambda f, decision, _n: (f, decision, text))
 
+    def rename_keys(self, mapping: Mapping[str, str]) -> int:
+        """Move reviews from old keys to new keys in one transaction; returns how many moved.
+
+        A pair is skipped when the old key has no review, or when the new key already has
+        one that stays (moved away by another pair counts as free); of several old keys
+        naming the same new key, the first in ``mapping`` wins. A moved review keeps its
+        fingerprint and time stamp and gets a new version.
+        """
+        pairs = [(old, new) for old, new in mapping.items() if old != new]
+        for old, new in pairs:
+            _check_key(old)
+            _check_key(new)
+        self._check_writable()
+        if not pairs:
+            return 0
+        moved: dict[str, int] = {}
+        with self._transaction() as conn:
+            stored = {row[0] for row in conn.execute("SELECT key FROM reviews")}
+            moving = _renames(pairs, stored)
+            if moving:
+                moved = _move_rows(conn, moving, _next_version(conn))
+        # Forget every old key before remembering the new ones: in a swap they are the same.
+        for old in moving:
+            self._seen.pop(old, None)
+        self._seen.update(moved)
+        return len(moving)
+
     # -- reading -------------------------------------------------------------------------
 
-    def get(self, key: str) -> Review | None:
-        """The review stored for ``key``, or None if there is none."""
+    def get(self, key: str, *, mark_seen: bool = True) -> Review | None:
+        """The review stored for ``key``, or None if there is none.
+
+        With ``mark_seen`` (the default) the store counts this state as seen by its user:
+        a later change of ``key`` is checked against it."""
         _check_key(key)
-        row = (
-            self._connection()
-            .execute(f"SELECT {', '.join(_REVIEW_COLUMNS)} FROM reviews WHERE key = ?", (key,))
-            .fetchone()
-        )
-        return None if row is None else self._review(row)
+        with self._reading() as conn:
+            row = (
+                conn.execute(f"{self._select} WHERE key = ?", (key,)).fetchone()
+                if self._has_table
+                else None
+            )
+        review = None if row is None else self._review(row)
+        if mark_seen:
+            self._remember(key, None if review is None else review.version)
+        return review
 
-    def all(self) -> list[Review]:
-        """Every stored review, ordered by key."""
-        rows = (
-            self._connection()
-            .execute(f"SELECT {', '.join(_REVIEW_COLUMNS)} FROM reviews ORDER BY key")
-            .fetchall()
-        )
-        return [self._review(row) for row in rows]
+    def all(self, *, mark_seen: bool = True) -> list[Review]:
+        """Every stored review, ordered by key; ``mark_seen`` as for ``get``, for every key."""
+        with self._reading() as conn:
+            rows = (
+                conn.execute(f"{self._select} ORDER BY key").fetchall() if self._has_table else []
+            )
+        reviews = [self._review(row) for row in rows]
+        if mark_seen:
+            self._seen = {review.key: review.version for review in reviews}
+        return reviews
 
-    def frame(self) -> pl.DataFrame:
+    def frame(self, *, mark_seen: bool = True) -> pl.DataFrame:
         """Every stored review as a frame with the columns and dtypes of REVIEW_SCHEMA."""
-        reviews = self.all()
+        reviews = self.all(mark_seen=mark_seen)
         return pl.DataFrame(
             {
                 "key": [r.key for r in reviews],
@@ -207,6 +345,28 @@ class ReviewStore:
             raise ReviewStoreError(f"{self._path}: review store is closed; open it again")
         return self._conn
 
+    def _check_writable(self) -> None:
+        self._connection()
+        if self._read_only:
+            raise ReviewStoreError(
+                f"{self._path}: opened read-only, so the change was not saved; open the review"
+                " file for writing to change reviews"
+            )
+
+    def _remember(self, key: str, version: int | None) -> None:
+        if version is None:
+            self._seen.pop(key, None)
+        else:
+            self._seen[key] = version
+
+    @contextmanager
+    def _reading(self) -> Iterator[sqlite3.Connection]:
+        conn = self._connection()
+        try:
+            yield conn
+        except sqlite3.Error as exc:
+            raise _store_error(self._path, exc, writing=False) from exc
+
     @contextmanager
     def _transaction(self) -> Iterator[sqlite3.Connection]:
         conn = self._connection()
@@ -215,37 +375,58 @@ class ReviewStore:
             # cannot interleave with another process writing the same file.
             conn.execute("BEGIN IMMEDIATE")
         except sqlite3.Error as exc:
-            raise ReviewStoreError(f"{self._path}: could not save the change ({exc})") from exc
+            raise _store_error(self._path, exc, writing=True) from exc
         try:
             yield conn
             conn.execute("COMMIT")
         except BaseException as exc:
             # A failed COMMIT leaves the transaction open; roll back so the connection stays usable.
-            if conn.in_transaction:
-                conn.execute("ROLLBACK")
+            _roll_back(conn)
             if isinstance(exc, sqlite3.Error):
-                raise ReviewStoreError(f"{self._path}: could not save the change ({exc})") from exc
+                raise _store_error(self._path, exc, writing=True) from exc
             raise
 
     def _modify(self, key: str, change: Callable[[bool, Decision | None, str], _Fields]) -> _Fields:
         _check_key(key)
+        self._check_writable()
+        version: int | None = None
         with self._transaction() as conn:
-            row = conn.execute(
-                "SELECT flagged, decision, note FROM reviews WHERE key = ?", (key,)
-            ).fetchone()
-            current: _Fields = (bool(row[0]), row[1], row[2]) if row else (False, None, "")
-            flagged, decision, note = change(*current)
+            row = conn.execute(f"{self._select} WHERE key = ?", (key,)).fetchone()
+            current = None if row is None else self._review(row)
+            self._refuse_conflict(key, current)
+            before: _Fields = (
+                (current.flagged, current.decision, current.note) if current else (False, None, "")
+            )
+            flagged, decision, note = change(*before)
             if not flagged and decision is None and note == "":
                 # Nothing left to remember: a cleared review leaves no row behind.
                 conn.execute("DELETE FROM reviews WHERE key = ?", (key,))
             else:
+                version = _next_version(conn)
                 conn.execute(
-                    _UPSERT, (key, int(flagged), decision, note, self._fingerprint, _utc_now())
+                    _UPSERT,
+                    (key, int(flagged), decision, note, self._fingerprint, _utc_now(), version),
                 )
+        self._remember(key, version)
         return flagged, decision, note
 
-    def _review(self, row: tuple[str, int, str | None, str, str, str]) -> Review:
-        key, flagged, decision, note, fingerprint, updated_at = row
+    def _refuse_conflict(self, key: str, current: Review | None) -> None:
+        stored = None if current is None else current.version
+        if stored == self._seen.get(key):
+            return
+        # The caller is about to be shown this state, so a repeated change applies to it.
+        self._remember(key, stored)
+        what = "deleted" if current is None else "changed"
+        raise ReviewConflict(
+            f"{self._path}: the review of {key!r} was {what} by another session since this one"
+            " last read it; nothing was saved; look at the review as it is now and repeat the"
+            " change to apply it",
+            key,
+            current,
+        )
+
+    def _review(self, row: tuple[Any, ...]) -> Review:
+        key, flagged, decision, note, fingerprint, updated_at, version = row
         return Review(
             key=key,
             flagged=bool(flagged),
@@ -253,8 +434,262 @@ class ReviewStore:
             note=note,
             fingerprint=fingerprint,
             updated_at=updated_at,
+            version=int(version),
             store_fingerprint=self._fingerprint,
         )
+
+
+# -- changes on the connection -------------------------------------------------------------
+
+
+def _roll_back(conn: sqlite3.Connection) -> None:
+    if conn.in_transaction:
+        # SQLite rolls back by itself after some errors; the original error matters more.
+        with suppress(sqlite3.Error):
+            conn.execute("ROLLBACK")
+
+
+def _next_version(conn: sqlite3.Connection) -> int:
+    """The next value of the file's version counter, stored before it is returned.
+
+    The larger of the counter and the highest row version, so a counter lost or edited by
+    hand cannot hand out a version that a row already carries.
+    """
+    counter = conn.execute(
+        "SELECT MAX(CAST(value AS INTEGER)) FROM meta WHERE name = 'last_version'"
+    ).fetchone()[0]
+    highest = conn.execute("SELECT MAX(version) FROM reviews").fetchone()[0]
+    version = max(int(counter or 0), int(highest or 0)) + 1
+    conn.execute(_SET_META, ("last_version", str(version)))
+    return version
+
+
+def _renames(pairs: list[tuple[str, str]], stored: set[str]) -> dict[str, str]:
+    """Which old keys move to which new keys (see ReviewStore.rename_keys)."""
+    moving: dict[str, str] = {}
+    targets: set[str] = set()
+    for old, new in pairs:
+        if old in stored and old not in moving and new not in targets:
+            moving[old] = new
+            targets.add(new)
+    # A new key that holds a review is free only when that review moves away itself; drop
+    # blocked pairs until none is left, since each drop can block another pair.
+    while blocked := [old for old, new in moving.items() if new in stored and new not in moving]:
+        for old in blocked:
+            del moving[old]
+    return moving
+
+
+def _move_rows(conn: sqlite3.Connection, moving: dict[str, str], first: int) -> dict[str, int]:
+    """Re-key the rows of ``moving``; returns the version each new key got."""
+    olds = list(moving)
+    marks = ", ".join("?" * len(olds))
+    rows = conn.execute(
+        "SELECT key, flagged, decision, note, fingerprint, updated_at FROM reviews"
+        f" WHERE key IN ({marks}) ORDER BY key",
+        olds,
+    ).fetchall()
+    conn.execute(f"DELETE FROM reviews WHERE key IN ({marks})", olds)
+    versions = {moving[row[0]]: first + index for index, row in enumerate(rows)}
+    conn.executemany(
+        _UPSERT, [(moving[row[0]], *row[1:], versions[moving[row[0]]]) for row in rows]
+    )
+    conn.execute(_SET_META, ("last_version", str(first + len(rows) - 1)))
+    return versions
+
+
+# -- errors --------------------------------------------------------------------------------
+
+
+def _error_code(exc: sqlite3.Error) -> int:
+    # The primary result code is the low byte of SQLite's extended result code.
+    code = getattr(exc, "sqlite_errorcode", None)
+    return code & 0xFF if isinstance(code, int) else -1
+
+
+def _detail(exc: sqlite3.Error) -> str:
+    text = str(exc)
+    if text.startswith("Could not decode"):
+        # Python's message quotes the undecodable text, which may span lines.
+        return "text that is not UTF-8"
+    return " ".join(text.split())[:80]
+
+
+def _store_error(path: Path, exc: sqlite3.Error, *, writing: bool) -> ReviewStoreError:
+    """The one-line error for ``exc`` raised while reading or writing ``path``."""
+    code = _error_code(exc)
+    lost = "the change was not saved; " if writing else ""
+    if code in (sqlite3.SQLITE_BUSY, sqlite3.SQLITE_LOCKED) or "is locked" in str(exc):
+        return ReviewStoreBusy(
+            f"{path}: the review file is busy: another program, or another foldsift, is writing"
+            f" to it (SQLite cannot tell which); {lost}try again in a moment"
+        )
+    if code == sqlite3.SQLITE_FULL:
+        return ReviewStoreError(f"{path}: the disk is full; {lost}free some space and try again")
+    if code == sqlite3.SQLITE_READONLY:
+        return ReviewStoreError(
+            f"{path}: cannot be written (the file or its folder is read-only); {lost}fix its"
+            " permissions or choose another review file"
+        )
+    if code in (sqlite3.SQLITE_IOERR, sqlite3.SQLITE_CANTOPEN, sqlite3.SQLITE_PERM):
+        return ReviewStoreError(
+            f"{path}: cannot be read or written ({_detail(exc)}); {lost}check the disk and the"
+            " file's permissions, then try again"
+        )
+    if code == sqlite3.SQLITE_NOTADB:
+        return ReviewStoreError(
+            f"{path}: is not a SQLite database; move it aside or choose another review file"
+        )
+    return ReviewStoreError(
+        f"{path}: the review file is damaged ({_detail(exc)}); {lost}restore it from a copy or"
+        " choose another review file"
+    )
+
+
+# -- opening -------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True, slots=True)
+class _Opened:
+    conn: sqlite3.Connection
+    created: bool
+    has_table: bool
+    versioned: bool
+
+
+def _schema_action(path: Path, conn: sqlite3.Connection) -> tuple[_Action, bool]:
+    """What the file's tables need before use, and whether a reviews table exists.
+
+    Raises ReviewStoreError for a schema version this code does not know and for a reviews
+    table that foldsift did not create.
+    """
+    columns = tuple(row[1] for row in conn.execute("PRAGMA table_info(reviews)"))
+    has_meta = conn.execute(
+        "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'meta'"
+    ).fetchone()
+    row = (
+        conn.execute("SELECT value FROM meta WHERE name = 'schema_version'").fetchone()
+        if has_meta
+        else None
+    )
+    found = None if row is None else str(row[0])
+    if found not in (None, "1", str(SCHEMA_VERSION)):
+        raise ReviewStoreError(
+            f"{path}: review schema version {found} is not supported (this foldsift knows"
+            f" versions up to {SCHEMA_VERSION}); use a newer foldsift or choose another review"
+            " file"
+        )
+    if not columns:
+        return "create", False
+    if columns == _REVIEW_COLUMNS and found in (None, str(SCHEMA_VERSION)):
+        return ("ready" if found else "create"), True
+    if columns == _V1_COLUMNS and found in (None, "1"):
+        return "migrate", True
+    raise ReviewStoreError(
+        f"{path}: holds a 'reviews' table that foldsift did not create; choose another review file"
+    )
+
+
+def _prepare(conn: sqlite3.Connection, action: _Action) -> None:
+    """Create the tables of a new store, or bring a version-1 store to this version."""
+    if action == "create":
+        conn.execute(_CREATE_REVIEWS)
+        conn.execute(_CREATE_META)
+        conn.execute(
+            "INSERT OR IGNORE INTO meta (name, value) VALUES ('last_version', '0')",
+        )
+    elif action == "migrate":
+        conn.execute(_MIGRATE_V1)
+        conn.execute(_CREATE_META)
+        conn.execute(_SET_META, ("last_version", "1"))
+    conn.execute(_SET_META, ("schema_version", str(SCHEMA_VERSION)))
+
+
+def _sqlite_connect(target: str, timeout: float, *, uri: bool = False) -> sqlite3.Connection:
+    # isolation_level=None: the stdlib must not open implicit transactions; _transaction
+    # issues BEGIN/COMMIT itself so each change is exactly one transaction.
+    return sqlite3.connect(target, isolation_level=None, timeout=timeout, uri=uri)
+
+
+def _open_writable(path: Path, timeout: float) -> _Opened:
+    existed = path.exists()
+    try:
+        conn = _sqlite_connect(str(path), timeout)
+    except sqlite3.Error as exc:
+        raise _store_error(path, exc, writing=False) from exc
+    try:
+        conn.execute("PRAGMA journal_mode=WAL").fetchone()
+        # synchronous is per connection, not stored in the file, so it is set on every open.
+        conn.execute("PRAGMA synchronous=FULL")
+        action, had_table = _schema_action(path, conn)
+        if action != "ready":
+            conn.execute("BEGIN IMMEDIATE")
+            # Look again under the write lock: another process may have prepared it meanwhile.
+            action, had_table = _schema_action(path, conn)
+            _prepare(conn, action)
+            conn.execute("COMMIT")
+    except (sqlite3.Error, ReviewStoreError) as exc:
+        conn.close()
+        if not existed and path.exists() and path.stat().st_size == 0:
+            path.unlink()
+        if isinstance(exc, sqlite3.Error):
+            raise _store_error(path, exc, writing=False) from exc
+        raise
+    return _Opened(conn, created=not had_table, has_table=True, versioned=True)
+
+
+def _open_read_only(path: Path, timeout: float) -> _Opened:
+    uri = path.absolute().as_uri() + "?mode=ro"
+    try:
+        conn = _read_only_connection(uri, timeout)
+    except sqlite3.Error as exc:
+        if _error_code(exc) not in (sqlite3.SQLITE_CANTOPEN, sqlite3.SQLITE_READONLY):
+            raise _store_error(path, exc, writing=False) from exc
+        _refuse_unfinished(path)
+        # SQLite's documentation on read-only WAL databases: they open only when the -shm and
+        # -wal files exist or can be created, or when the file is opened as immutable. With
+        # no -wal file (or an empty one) every committed change is in the file itself, so
+        # immutable=1 reads all of it; with a non-empty -wal it would miss changes, hence the
+        # refusal above (likewise a rollback journal left by a crash, which only a writer can
+        # undo). Immutable also skips locking, which is why it is only the fallback.
+        try:
+            conn = _read_only_connection(uri + "&immutable=1", timeout)
+        except sqlite3.Error as again:
+            raise _store_error(path, again, writing=False) from again
+    try:
+        action, has_table = _schema_action(path, conn)
+    except (sqlite3.Error, ReviewStoreError) as exc:
+        conn.close()
+        if isinstance(exc, sqlite3.Error):
+            raise _store_error(path, exc, writing=False) from exc
+        raise
+    return _Opened(conn, created=False, has_table=has_table, versioned=action != "migrate")
+
+
+def _read_only_connection(uri: str, timeout: float) -> sqlite3.Connection:
+    """A connection through ``uri`` that has read the schema (which is when SQLite opens
+    the WAL files it needs)."""
+    conn = _sqlite_connect(uri, timeout, uri=True)
+    try:
+        conn.execute("SELECT COUNT(*) FROM sqlite_master").fetchone()
+    except BaseException:
+        conn.close()
+        raise
+    return conn
+
+
+def _refuse_unfinished(path: Path) -> None:
+    for suffix in ("-wal", "-journal"):
+        beside = path.with_name(path.name + suffix)
+        if beside.exists() and beside.stat().st_size > 0:
+            raise ReviewStoreError(
+                f"{path}: cannot be read here: its latest changes are still in {beside.name}"
+                " and SQLite needs to write beside the file to read them; open it once where"
+                " its folder is writable, or copy it together with that file to such a folder"
+            )
+
+
+# -- paths ---------------------------------------------------------------------------------
 
 
 def default_review_path(data_path: Path) -> Path:
@@ -277,7 +712,11 @@ def default_review_path(data_path: Path) -> Path:
         return beside
     # Hash the resolved path so two data files with the same name do not share reviews.
     digest = hashlib.sha256(os.fsencode(data_path.resolve())).hexdigest()[:12]
-    return _data_home() / "foldsift" / "reviews" / f"{data_path.stem}-{digest}.reviews.sqlite"
+    return _review_home() / f"{data_path.stem}-{digest}.reviews.sqlite"
+
+
+def _review_home() -> Path:
+    return _data_home() / "foldsift" / "reviews"
 
 
 def _data_home() -> Path:
@@ -303,83 +742,64 @@ def _check_key(key: str) -> None:
         raise ValueError("review key must not be empty")
 
 
-def _check_openable(path: Path) -> None:
-    """Fail early, with a message a user can act on, before SQLite gives a vaguer one."""
-    if path.is_dir():
-        raise ReviewStoreError(f"{path}: is a directory, not a review file; give a file path")
+def _check_folder(path: Path, *, create_folders: bool) -> None:
     parent = path.parent
+    if parent.is_dir():
+        return
+    if parent.exists():
+        raise ReviewStoreError(f"{path}: {parent} is not a folder; choose another review file")
+    if not create_folders:
+        raise ReviewStoreError(
+            f"{path}: folder {parent} does not exist; check the path, or create the folder first"
+        )
     try:
         parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise ReviewStoreError(
             f"{path}: cannot create folder {parent} ({exc.strerror}); choose another review file"
         ) from exc
+
+
+def _check_header(path: Path) -> None:
+    if not path.is_file():
+        raise ReviewStoreError(f"{path}: is not a regular file; choose another review file")
+    try:
+        with path.open("rb") as fh:
+            header = fh.read(len(_SQLITE_MAGIC))
+    except OSError as exc:
+        raise ReviewStoreError(
+            f"{path}: cannot read it ({exc.strerror}); fix its permissions or choose another"
+            " review file"
+        ) from exc
+    # A zero-length file is a valid empty database to SQLite; anything else needs the magic.
+    if header and header != _SQLITE_MAGIC:
+        raise ReviewStoreError(
+            f"{path}: is not a SQLite database; move it aside or choose another review file"
+        )
+
+
+def _check_readable(path: Path) -> None:
+    """Fail early for a read-only opening; creates nothing."""
+    if path.is_dir():
+        raise ReviewStoreError(f"{path}: is a directory, not a review file; give a file path")
+    if not path.exists():
+        raise ReviewStoreError(f"{path}: no such review file; check the path")
+    _check_header(path)
+
+
+def _check_openable(path: Path, *, create_folders: bool) -> None:
+    """Fail early, with a message a user can act on, before SQLite gives a vaguer one."""
+    if path.is_dir():
+        raise ReviewStoreError(f"{path}: is a directory, not a review file; give a file path")
+    _check_folder(path, create_folders=create_folders)
     if path.exists():
-        if not path.is_file():
-            raise ReviewStoreError(f"{path}: is not a regular file; choose another review file")
-        try:
-            with path.open("rb") as fh:
-                header = fh.read(len(_SQLITE_MAGIC))
-        except OSError as exc:
-            raise ReviewStoreError(
-                f"{path}: cannot read it ({exc.strerror}); fix its permissions or choose another"
-                " review file"
-            ) from exc
-        # A zero-length file is a valid empty database to SQLite; anything else needs the magic.
-        if header and header != _SQLITE_MAGIC:
-            raise ReviewStoreError(
-                f"{path}: is not a SQLite database; move it aside or choose another review file"
-            )
+        _check_header(path)
         if not os.access(path, os.W_OK):
             raise ReviewStoreError(
                 f"{path}: is not writable; fix its permissions or choose another review file"
             )
-    if not _dir_writable(parent):
+    if not _dir_writable(path.parent):
         raise ReviewStoreError(
-            f"{path}: folder {parent} is not writable (SQLite needs to create files beside the"
-            " review file); choose another review file"
+            f"{path}: folder {path.parent} is not writable (SQLite needs to create files beside"
+            " the review file); choose another review file"
         )
-
-
-def _connect(path: Path) -> sqlite3.Connection:
-    # isolation_level=None: the stdlib must not open implicit transactions; _transaction
-    # issues BEGIN/COMMIT itself so each change is exactly one transaction.
-    try:
-        conn = sqlite3.connect(str(path), isolation_level=None, timeout=5.0)
-    except sqlite3.Error as exc:
-        raise ReviewStoreError(f"{path}: cannot open ({exc}); choose another review file") from exc
-    try:
-        conn.execute("PRAGMA journal_mode=WAL").fetchone()
-        # synchronous is per connection, not stored in the file, so it is set on every open.
-        conn.execute("PRAGMA synchronous=FULL")
-        conn.execute("BEGIN IMMEDIATE")
-        conn.execute(_CREATE_REVIEWS)
-        conn.execute(_CREATE_META)
-        conn.execute(
-            "INSERT OR IGNORE INTO meta (name, value) VALUES ('schema_version', ?)",
-            (str(SCHEMA_VERSION),),
-        )
-        version = conn.execute("SELECT value FROM meta WHERE name = 'schema_version'").fetchone()
-        columns = tuple(row[1] for row in conn.execute("PRAGMA table_info(reviews)"))
-        conn.execute("COMMIT")
-    except sqlite3.DatabaseError as exc:
-        conn.close()
-        if "not a database" in str(exc):
-            raise ReviewStoreError(
-                f"{path}: is not a SQLite database; move it aside or choose another review file"
-            ) from exc
-        raise ReviewStoreError(f"{path}: cannot open ({exc}); choose another review file") from exc
-    if version is None or version[0] != str(SCHEMA_VERSION):
-        conn.close()
-        found = "none" if version is None else version[0]
-        raise ReviewStoreError(
-            f"{path}: review schema version {found} is not supported (expected {SCHEMA_VERSION});"
-            " use a matching foldsift or choose another review file"
-        )
-    if columns != _REVIEW_COLUMNS:
-        conn.close()
-        raise ReviewStoreError(
-            f"{path}: holds a 'reviews' table that foldsift did not create; choose another"
-            " review file"
-        )
-    return conn

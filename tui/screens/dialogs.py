@@ -12,6 +12,8 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Button, Input, Label, Markdown, RadioButton, RadioSet, TextArea
 
+from ..session import SELECTIONS, Selection
+
 CAUTIONS = """\
 **Cautions.** foldsift's results are screening aids, not decisions. A ratio of geometric
 means is a ratio of medians only when each group's log-scale distribution is symmetric: read
@@ -63,7 +65,7 @@ class ExportChoice:
     """What the export dialog returns."""
 
     path: Path
-    rows: str  # "flagged", "shown" or "all"
+    rows: Selection
 
 
 class ExportScreen(ModalScreen[ExportChoice | None]):
@@ -71,7 +73,15 @@ class ExportScreen(ModalScreen[ExportChoice | None]):
 
     BINDINGS = [Binding("escape", "cancel", "Cancel", id="export.cancel")]
 
-    def __init__(self, default_path: Path, counts: dict[str, int]) -> None:
+    #: How each selection reads in the dialog.
+    LABELS: dict[Selection, str] = {
+        "flagged": "flagged rows",
+        "decided": "rows with a decision",
+        "shown": "rows shown by the filter",
+        "all": "all rows",
+    }
+
+    def __init__(self, default_path: Path, counts: dict[Selection, int]) -> None:
         super().__init__()
         self._default = default_path
         self._counts = counts
@@ -80,19 +90,14 @@ class ExportScreen(ModalScreen[ExportChoice | None]):
         with Vertical(classes="dialog"):
             yield Label("Export comparisons to CSV", classes="dialog-title")
             # Flagged rows by default; with nothing flagged yet, the rows the filter shows.
-            none_flagged = self._counts["flagged"] == 0
+            default: Selection = "flagged" if self._counts["flagged"] else "shown"
             with RadioSet(id="export-rows"):
-                yield RadioButton(
-                    f"flagged rows ({self._counts['flagged']})",
-                    value=not none_flagged,
-                    id="rows-flagged",
-                )
-                yield RadioButton(
-                    f"rows shown by the filter ({self._counts['shown']})",
-                    value=none_flagged,
-                    id="rows-shown",
-                )
-                yield RadioButton(f"all rows ({self._counts['all']})", id="rows-all")
+                for which in SELECTIONS:
+                    yield RadioButton(
+                        f"{self.LABELS[which]} ({self._counts[which]})",
+                        value=which == default,
+                        id=f"rows-{which}",
+                    )
             yield Label("File name:")
             yield Input(str(self._default), id="export-path")
             yield Label("", id="export-error", classes="dialog-error")
@@ -103,9 +108,10 @@ class ExportScreen(ModalScreen[ExportChoice | None]):
     def on_mount(self) -> None:
         self.query_one("#export-path", Input).focus()
 
-    def _rows(self) -> str:
+    def _rows(self) -> Selection:
         pressed = self.query_one(RadioSet).pressed_button
-        return (pressed.id or "rows-flagged").removeprefix("rows-") if pressed else "flagged"
+        name = (pressed.id or "") if pressed else ""
+        return next((w for w in SELECTIONS if f"rows-{w}" == name), "flagged")
 
     @on(Input.Submitted, "#export-path")
     @on(Button.Pressed, "#export-go")

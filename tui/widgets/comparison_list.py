@@ -6,7 +6,6 @@ and draws rows on demand, so 50,000 rows cost no more to show than 50.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -21,29 +20,9 @@ from textual.reactive import reactive
 from textual.scroll_view import ScrollView
 from textual.strip import Strip
 
-from foldsift.stats.sentence import readable_outcome
-
-
-def _ratio(value: float | None) -> str:
-    if value is None or not math.isfinite(value):
-        return "–"
-    if 0.01 <= value < 100:
-        return f"{value:.2f}"
-    return f"{value:.1e}"
-
-
-def _p(value: float | None) -> str:
-    if value is None or not math.isfinite(value):
-        return "–"
-    if value < 0.0001:
-        return "<.0001"
-    return f"{value:.4f}" if value < 0.01 else f"{value:.3f}"
-
-
-def _percent(value: float | None) -> str:
-    if value is None or not math.isfinite(value):
-        return "–"
-    return f"{value:+.0f}%" if abs(value) < 10000 else f"{value:+.0e}%"
+from foldsift.stats import columns as col
+from foldsift.stats.columns import ReviewedRow, reviewed_row
+from foldsift.stats.formatting import interval_text, p_text, percent_text, ratio_text
 
 
 @dataclass(frozen=True)
@@ -53,43 +32,50 @@ class Column:
     title: str
     width: int
     sort_on: str
-    render: Callable[[dict], str]
+    render: Callable[[ReviewedRow], str]
     right: bool = False
 
 
-def _grouping(name: str) -> str:
-    """``field within season=spring`` (a stratified grouping) is shown as ``field·spring``."""
-    base, _, stratum = name.partition(" within ")
-    return f"{base}·{stratum.partition('=')[2]}" if stratum else base
+def _grouping(row: ReviewedRow) -> str:
+    """A grouping compared inside strata reads ``field·spring``."""
+    stratum = row["stratum"]
+    return row["grouping"] if stratum is None else f"{row['grouping']}·{stratum}"
 
 
-def _decision(row: dict) -> str:
-    return row.get("decision") or ""
+def _warnings(row: ReviewedRow) -> str:
+    return f"!{row['warning_count']}" if row["warning_count"] else ""
 
 
-# Most-read columns first, so an 80-column terminal shows the finding without scrolling.
+# Most-read columns first, so an 80-column terminal shows the finding without scrolling; the
+# whole row fits 120 columns with the vertical scroll bar.
 COLUMNS: tuple[Column, ...] = (
-    Column("⚑", 1, "flagged", lambda r: "⚑" if r.get("flagged") else " "),
-    Column("outcome", 19, "outcome", lambda r: readable_outcome(r["outcome"])),
-    Column("level b ÷ level a", 20, "level_b", lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
-    Column("ratio", 6, "ratio", lambda r: _ratio(r["ratio"]), right=True),
-    Column("CI", 11, "ci_low", lambda r: f"{_ratio(r['ci_low'])}–{_ratio(r['ci_high'])}"),
-    Column("q", 6, "q_bh", lambda r: _p(r["q_bh"]), right=True),
-    Column("p", 6, "p_value", lambda r: _p(r["p_value"]), right=True),
-    Column(
-        "warn",
-        4,
-        "warning_count",
-        lambda r: f"!{r['warning_count']}" if r.get("warning_count") else "",
-        right=True,
-    ),
-    Column("n b/a", 7, "n_min", lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
-    Column("grouping", 12, "grouping", lambda r: _grouping(r["grouping"])),
+    Column("⚑", 1, col.FLAGGED, lambda r: "⚑" if r["flagged"] else " "),
+    Column("outcome", 18, col.OUTCOME, lambda r: r["outcome_label"]),
+    Column("level b ÷ level a", 18, col.LEVEL_B, lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
+    Column("ratio", 7, col.RATIO, lambda r: ratio_text(r["ratio"]), right=True),
+    Column("CI", 12, col.CI_LOW, lambda r: interval_text(r["ci_low"], r["ci_high"])),
+    Column("q", 7, col.Q_BH, lambda r: p_text(r["q_bh"]), right=True),
+    Column("p", 7, col.P_VALUE, lambda r: p_text(r["p_value"]), right=True),
+    Column("warn", 4, col.WARNING_COUNT, _warnings, right=True),
+    Column("n b/a", 7, col.N_MIN, lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
+    Column("grouping", 12, col.GROUPING, _grouping),
     # Sorted on the size of the change either way (|log ratio|), so 0.25× ranks beside 4×.
-    Column("change", 7, "change_size", lambda r: _percent(r["percent_change"]), right=True),
-    Column("decision", 6, "decision", _decision),
-    Column("✎", 1, "note", lambda r: "✎" if r.get("note") else " "),
+    Column("change", 6, col.CHANGE_SIZE, lambda r: percent_text(r["percent_change"]), right=True),
+    Column("decision", 6, col.DECISION, lambda r: r["decision"] or ""),
+    Column("✎", 1, col.NOTE, lambda r: "✎" if r["note"] else " "),
 )
+#: Every column the list sorts on, in the order ``s`` steps through them.
+SORTABLE: tuple[str, ...] = tuple(column.sort_on for column in COLUMNS)
+#: How the status line names each sort column.
+SORT_NAMES: dict[str, str] = {column.sort_on: column.title for column in COLUMNS} | {
+    col.FLAGGED: "flag",
+    col.NOTE: "note",
+    col.WARNING_COUNT: "warnings",
+    col.LEVEL_B: "levels",
+    col.N_MIN: "smaller n",
+    col.CI_LOW: "CI",
+    col.CHANGE_SIZE: "size of change",
+}
 SEPARATOR = " "
 
 
@@ -132,6 +118,9 @@ class ComparisonList(ScrollView, can_focus=True):
     """
 
     cursor_row: reactive[int] = reactive(0, always_update=True)
+    #: The column the frame is sorted on and its direction, shown by an arrow in the header.
+    sort_on: reactive[str] = reactive("")
+    descending: reactive[bool] = reactive(False)
 
     @dataclass
     class Highlighted(Message):
@@ -150,8 +139,6 @@ class ComparisonList(ScrollView, can_focus=True):
         super().__init__(id=id)
         self._frame: pl.DataFrame = pl.DataFrame()
         self._line_cache: dict[tuple[int, bool, int], Strip] = {}
-        self.sort_on: str = ""
-        self.descending: bool = False
         self._total_width = sum(c.width for c in COLUMNS) + len(SEPARATOR) * (len(COLUMNS) - 1)
 
     # -- data -------------------------------------------------------------------------------
@@ -166,14 +153,15 @@ class ComparisonList(ScrollView, can_focus=True):
         self.virtual_size = Size(self._total_width, frame.height + 1)
         index = 0
         if keep_key is not None and frame.height:
-            found = frame.select(pl.arg_where(pl.col("key") == keep_key)).to_series()
+            found = frame.select(pl.arg_where(pl.col(col.KEY) == keep_key)).to_series()
             if found.len():
                 index = int(found[0])
         self.cursor_row = min(index, max(frame.height - 1, 0))
         self.refresh()
 
-    def update_row(self, frame: pl.DataFrame) -> None:
-        """Same rows, new review values (a flag, decision or note changed)."""
+    def update_rows(self, frame: pl.DataFrame) -> None:
+        """Same rows in the same order, new review values (a flag, decision or note changed):
+        the cursor stays where it is."""
         self._frame = frame
         self._line_cache.clear()
         self.refresh()
@@ -182,7 +170,14 @@ class ComparisonList(ScrollView, can_focus=True):
     def current_key(self) -> str | None:
         if not self._frame.height:
             return None
-        return self._frame["key"][self.cursor_row]
+        key: str = self._frame[col.KEY][self.cursor_row]
+        return key
+
+    @property
+    def current_row(self) -> ReviewedRow | None:
+        if not self._frame.height:
+            return None
+        return reviewed_row(self._frame, self.cursor_row)
 
     # -- cursor -----------------------------------------------------------------------------
     def validate_cursor_row(self, value: int) -> int:
@@ -269,13 +264,13 @@ class ComparisonList(ScrollView, can_focus=True):
         cached = self._line_cache.get(cache_key)
         if cached is not None:
             return cached
-        row = self._frame.row(index, named=True)
+        row = reviewed_row(self._frame, index)
         style = self.rich_style
-        if row.get("flagged"):
+        if row["flagged"]:
             style += self.get_component_rich_style("comparison-list--flagged")
-        elif row.get("warning_count"):
+        elif row["warning_count"]:
             style += self.get_component_rich_style("comparison-list--warned")
-        if row.get("on_earlier_data"):
+        if row["on_earlier_data"]:
             style += self.get_component_rich_style("comparison-list--earlier")
         if selected:
             style += self.get_component_rich_style("comparison-list--cursor")

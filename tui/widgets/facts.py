@@ -1,119 +1,157 @@
 """The facts of one comparison as a single rich Text: the sentence, a small aligned table of
 numbers, the warnings explained and the review state. One Text (not a rich Table) keeps the
-repaint cheap when the cursor moves."""
+repaint cheap when the cursor moves. Every number is written by ``stats.formatting``."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from typing import Any
+
 from rich.text import Text
 
+from foldsift.stats import columns as col
+from foldsift.stats.columns import ReviewedRow
 from foldsift.stats.diagnostics import explain
+from foldsift.stats.formatting import (
+    MISSING,
+    count_text,
+    interval_text,
+    level_text,
+    number_text,
+    p_text,
+    percent_text,
+    ratio_text,
+)
 from foldsift.stats.robust import RobustCheck
-from foldsift.stats.sentence import finding, number, p_text, ratio_text
+from foldsift.stats.sentence import finding
 
 from .histograms import STYLE_A, STYLE_B
 
 LABEL_WIDTH = 18
 VALUE_WIDTH = 13
+#: Below this width the two columns of figures narrow so that rows fit a small pane.
+NARROW = 46
 
 
-def _count(value: int | None) -> str:
-    return "–" if value is None else str(value)
+class _Table:
+    """Rows of a label and one value per group, or a label, a value and a remark."""
+
+    def __init__(self, text: Text, width: int) -> None:
+        self.text = text
+        self.label_width, self.value_width = (
+            (LABEL_WIDTH, VALUE_WIDTH) if width >= NARROW else (15, 10)
+        )
+
+    def _label(self, label: str) -> None:
+        self.text.append(label[: self.label_width].ljust(self.label_width))
+
+    def heads(self, level_a: str, level_b: str) -> None:
+        self.text.append(" " * self.label_width)
+        head_a = f"a: {level_a}"[: self.value_width - 1].ljust(self.value_width)
+        self.text.append(head_a, style=f"bold {STYLE_A}")
+        self.text.append(f"b: {level_b}"[: self.value_width - 1] + "\n", style=f"bold {STYLE_B}")
+
+    def pair(self, label: str, value_a: str, value_b: str) -> None:
+        self._label(label)
+        self.text.append(value_a.ljust(self.value_width), style=STYLE_A)
+        self.text.append(value_b + "\n", style=STYLE_B)
+
+    def line(self, label: str, value: str, remark: str = "") -> None:
+        self._label(label)
+        self.text.append(value.ljust(self.value_width), style="bold")
+        self.text.append(remark + "\n")
 
 
-def facts_text(
-    row: dict, band: tuple[float, float], check: RobustCheck | None, width: int = 80
-) -> Text:
-    """The facts as one Text; ``width`` narrows the columns so that rows fit a small pane."""
-    label_width, value_width = (LABEL_WIDTH, VALUE_WIDTH) if width >= 46 else (15, 10)
-    text = Text()
-    text.append(finding(row) + "\n\n", style="bold")
-    text.append(" " * label_width)
-    text.append(
-        f"a: {row['level_a']}"[: value_width - 1].ljust(value_width), style=f"bold {STYLE_A}"
-    )
-    text.append(f"b: {row['level_b']}"[: value_width - 1] + "\n", style=f"bold {STYLE_B}")
+#: The per-group rows: label, figure (``side(figure, "a")`` and ``"b"``) and its format.
+GROUP_ROWS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
+    ("n used", "n", count_text),
+    ("left out", "n_excluded", count_text),
+    ("substituted", "n_substituted", count_text),
+    ("below detection", "n_censored", count_text),
+    ("geometric mean", "gm", number_text),
+    ("median", "median", number_text),
+    ("log SD", "sd_log", number_text),
+    ("skewness (logs)", "skew_log", number_text),
+    ("skewness (raw)", "skew_raw", number_text),
+    ("Shapiro p (logs)", "shapiro_p", p_text),
+)
 
-    def pair(label: str, name: str, fmt=number) -> None:
-        text.append(label[:label_width].ljust(label_width))
-        text.append(fmt(row.get(name + "_a")).ljust(value_width), style=STYLE_A)
-        text.append(fmt(row.get(name + "_b")) + "\n", style=STYLE_B)
 
-    def line(label: str, value: str, extra: str = "") -> None:
-        text.append(label[:label_width].ljust(label_width))
-        text.append(value.ljust(value_width), style="bold")
-        text.append(extra + "\n")
+def _groups(table: _Table, row: ReviewedRow) -> None:
+    figures: dict[str, Any] = dict(row)
+    table.heads(row["level_a"], row["level_b"])
+    for label, figure, write in GROUP_ROWS:
+        a, b = figures[col.side(figure, "a")], figures[col.side(figure, "b")]
+        table.pair(label, write(a), write(b))
 
-    pair("n used", "n", _count)
-    pair("left out", "n_excluded", _count)
-    pair("substituted", "n_substituted", _count)
-    pair("below detection", "n_censored", _count)
-    pair("geometric mean", "gm")
-    pair("median", "median")
-    pair("log SD", "sd_log")
-    pair("skewness (logs)", "skew_log")
-    pair("skewness (raw)", "skew_raw")
-    pair("Shapiro p (logs)", "shapiro_p", p_text)
-    text.append("\n")
-    level = round(100 * row["confidence"])
+
+def _estimates(table: _Table, row: ReviewedRow, band: tuple[float, float]) -> None:
+    level = level_text(row["confidence"])
     test = "Welch" if row["test"] == "welch" else "pooled"
-    line(
-        "ratio b/a (GM)",
-        ratio_text(row["ratio"]),
-        f"{level}% CI {ratio_text(row['ci_low'])} to {ratio_text(row['ci_high'])}",
-    )
-    line(
-        "ratio of medians",
-        ratio_text(row["median_ratio"]),
-        f"change {number(row['percent_change'])}%",
-    )
-    line(
-        "log2 ratio",
-        number(row.get("log2_ratio")),
-        f"df {number(row.get('df'))} ({test} t on logs)",
-    )
-    line("p", p_text(row["p_value"]), f"Holm {p_text(row['p_holm'])} · q {p_text(row['q_bh'])}")
-    line(
-        f"band {band[0]:g}–{band[1]:g}",
-        row.get("band_class") or "–",
-        f"90% CI {ratio_text(row.get('tost_ci_low'))} to {ratio_text(row.get('tost_ci_high'))}",
-    )
-    line(
-        "CI high/low",
-        number(row.get("ci_fold")),
-        f"80%-power detectable {ratio_text(row.get('detectable_ratio'))}×",
-    )
-    if row.get("n_needed") is not None:
-        line("n per group needed", number(row["n_needed"]), "for the target ratio")
-    if check is not None:
-        line(
-            "bootstrap medians",
-            f"{ratio_text(check.median_ratio_ci_low)}–{ratio_text(check.median_ratio_ci_high)}",
-            f"BCa {level}% CI of {ratio_text(check.median_ratio)}",
-        )
-        line(
-            "Hodges-Lehmann",
-            ratio_text(check.hl_ratio),
-            f"CI {ratio_text(check.hl_ci_low)} to {ratio_text(check.hl_ci_high)}, "
-            f"Mann-Whitney {p_text(check.mann_whitney_p, 'p')}",
-        )
-    else:
-        line("cross-checks", "press b", "bootstrap CI of the median ratio, Hodges-Lehmann")
-    text.append("\n")
+    ci = interval_text(row["ci_low"], row["ci_high"], " to ")
+    table.line("ratio b/a (GM)", ratio_text(row["ratio"]), f"{level} CI {ci}")
+    change = f"change {percent_text(row['percent_change'])}"
+    table.line("ratio of medians", ratio_text(row["median_ratio"]), change)
+    degrees = f"df {number_text(row['df'])} ({test} t on logs)"
+    table.line("log2 ratio", number_text(row["log2_ratio"]), degrees)
+    adjusted = f"Holm {p_text(row['p_holm'])} · q {p_text(row['q_bh'])}"
+    table.line("p", p_text(row["p_value"]), adjusted)
+    tost = interval_text(row["tost_ci_low"], row["tost_ci_high"], " to ")
+    table.line(f"band {interval_text(*band)}", row["band_class"] or MISSING, f"90% CI {tost}")
+    detectable = f"80%-power detectable {ratio_text(row['detectable_ratio'])}×"
+    table.line("CI high/low", number_text(row["ci_fold"]), detectable)
+    if row["n_needed"] is not None:
+        table.line("n per group needed", number_text(row["n_needed"]), "for the target ratio")
+
+
+def _cross_checks(table: _Table, row: ReviewedRow, check: RobustCheck | None) -> None:
+    if check is None:
+        table.line("cross-checks", "press b", "bootstrap CI of the median ratio, Hodges-Lehmann")
+        return
+    level = level_text(row["confidence"])
+    bootstrap = interval_text(check.median_ratio_ci_low, check.median_ratio_ci_high)
+    of_what = f"BCa {level} CI of {ratio_text(check.median_ratio)}"
+    table.line("bootstrap medians", bootstrap, of_what)
+    hl_ci = interval_text(check.hl_ci_low, check.hl_ci_high, " to ")
+    remark = f"CI {hl_ci}, Mann-Whitney {p_text(check.mann_whitney_p, 'p')}"
+    table.line("Hodges-Lehmann", ratio_text(check.hl_ratio), remark)
+
+
+def _warnings(text: Text, row: ReviewedRow) -> None:
     for name, explanation in explain(row["warnings"]):
         text.append(f"! {name}", style="bold yellow")
         text.append(f"  {explanation}\n")
     if not row["warnings"]:
         text.append("no warnings\n", style="green")
-    review = []
-    if row.get("decision"):
-        review.append(f"decision: {row['decision']}")
-    if row.get("flagged"):
-        review.append("flagged")
-    if row.get("on_earlier_data"):
-        review.append("review made on an earlier version of the data file")
-    if review:
-        text.append(" · ".join(review) + "\n", style="bold")
-    if row.get("note"):
+
+
+def _review(text: Text, row: ReviewedRow) -> None:
+    state = []
+    if row["decision"] is not None:
+        state.append(f"decision: {row['decision']}")
+    if row["flagged"]:
+        state.append("flagged")
+    if row["on_earlier_data"]:
+        state.append("review made on an earlier version of the data file")
+    if state:
+        text.append(" · ".join(state) + "\n", style="bold")
+    if row["note"]:
         text.append("note: ", style="bold")
         text.append(row["note"] + "\n")
+
+
+def facts_text(
+    row: ReviewedRow, band: tuple[float, float], check: RobustCheck | None, width: int = 80
+) -> Text:
+    """The facts as one Text; ``width`` narrows the columns so that rows fit a small pane."""
+    text = Text()
+    text.append(finding(row) + "\n\n", style="bold")
+    table = _Table(text, width)
+    _groups(table, row)
+    text.append("\n")
+    _estimates(table, row, band)
+    _cross_checks(table, row, check)
+    text.append("\n")
+    _warnings(text, row)
+    _review(text, row)
     return text

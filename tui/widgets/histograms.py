@@ -60,7 +60,18 @@ def back_to_back(
         return Text(f"chart unavailable: {error}", style="italic")
 
 
-def _draw(data_a, data_b, values_a, values_b, low, high, log_scale, width, height, title) -> Text:
+def _draw(
+    data_a: np.ndarray,
+    data_b: np.ndarray,
+    values_a: np.ndarray,
+    values_b: np.ndarray,
+    low: float,
+    high: float,
+    log_scale: bool,
+    width: int,
+    height: int,
+    title: str,
+) -> Text:
     transform = np.log if log_scale else (lambda v: v)
     bins = int(max(6, min(24, (width - 10) // 3)))
     edges = np.linspace(low, high, bins + 1)
@@ -100,16 +111,28 @@ def _nice_ticks(low: float, high: float, log_scale: bool, most: int = 5) -> list
     if not (math.isfinite(low) and math.isfinite(high)) or high <= low:
         return [low]
     if log_scale and low > 0:
-        ticks = []
-        for exponent in range(math.floor(math.log10(low)), math.ceil(math.log10(high)) + 1):
-            for mantissa in (1, 2, 5):
-                value = mantissa * 10.0**exponent
-                if math.isfinite(value) and low <= value <= high:
-                    ticks.append(value)
-        if len(ticks) > most:
-            ticks = [v for v in ticks if math.isclose(math.log10(v) % 1, 0, abs_tol=1e-9)] or ticks
+        ticks = _decade_ticks(low, high, most)
         if len(ticks) >= 2:
             return ticks
+    return _linear_ticks(low, high, most)
+
+
+def _decade_ticks(low: float, high: float, most: int) -> list[float]:
+    """1, 2 and 5 × 10^k inside [low, high] (0 < low); only the powers of ten when there
+    would be more than ``most``."""
+    ticks = []
+    for exponent in range(math.floor(math.log10(low)), math.ceil(math.log10(high)) + 1):
+        for mantissa in (1, 2, 5):
+            value = mantissa * 10.0**exponent
+            if math.isfinite(value) and low <= value <= high:
+                ticks.append(value)
+    if len(ticks) > most:
+        ticks = [v for v in ticks if math.isclose(math.log10(v) % 1, 0, abs_tol=1e-9)] or ticks
+    return ticks
+
+
+def _linear_ticks(low: float, high: float, most: int) -> list[float]:
+    """Evenly spaced ticks inside [low, high], the step 1, 2 or 5 × 10^k, at most ``most``."""
     span = high - low
     step = 10 ** math.floor(math.log10(span / most))
     for factor in (1, 2, 5, 10):

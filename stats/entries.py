@@ -1,0 +1,511 @@
+"""Reading the entries of a text column as numbers, per column.
+
+Each entry is trimmed, then read by these rules (codes compared case-insensitively):
+
+- **Missing**: empty or one of :data:`MISSING_WORDS` (``NA``, ``n/a``, ``null``, ``-``, ``.``,
+  ``missing`` ...): null, in every column.
+- **A number** may carry, in this order, a comparison sign, a currency sign, the number, a
+  unit and a laboratory qualifier:
+
+  ==================================  =====================================================
+  ``<0.5``, ``< 0.5``, ``<=0.5``      below a detection or reporting limit: censored, the
+                                      value is the limit (0.5)
+  ``0.5U``, ``0.5 U``, ``0.5 UJ``     qualifier U / UJ, "not detected at this limit" (the
+  ``0.5 ND``                          usual laboratory data-validation codes): censored at 0.5
+  ``0.5 J``                           qualifier J, "estimated": the value is used, and counted
+  ``>1500``, ``>=1500``               above the measuring range: the number is kept (a lower
+                                      bound of the true value, so that group's figures are
+                                      understated) and counted; it is not censored-below
+  ``12.5 mg/kg``, ``12.5mg/L``,       a unit in the cell: the number is read and the unit
+  ``$12``                             noted; the cells of one column that carry a unit must
+                                      all carry the same one, else the column is refused
+                                      (mixed units need a conversion this reader does not do)
+  ``15%``                             a percentage: read as 15, and the column's note says
+                                      the entries were percentages
+  ==================================  =====================================================
+
+- **Below detection without a number** (:data:`BELOW_WORDS`: ``ND``, ``n.d.``, ``BDL``,
+  ``not detected`` ..., and ``<`` before a word: ``<LOD``, ``<LOQ``, ``<RL``): censored with no
+  known limit; left out and counted.
+- Anything else is **unparsed**: left out, counted, and its spellings named.
+
+**Decimal mark**, decided per column from all of its entries (``--decimal`` overrides):
+
+- A comma is a decimal comma when some entry has 1, 2 or 4+ digits after its only comma, or
+  no or a zero integer part before it (``,5``, ``0,125``), or points between groups of three
+  digits before it (``1.234,5``, ``1.234.567``). The same rules with the marks swapped make
+  the point the decimal mark (``12.5``, ``1,234.5``, ``1,234,567``).
+- With a decimal comma, points separate thousands; with a decimal point, commas do. Spaces
+  (also no-break and narrow no-break spaces) between groups of three digits separate
+  thousands either way.
+- When both marks are shown to be decimal marks and no entry uses a thousands separator or
+  could be read both ways, both are read as decimal marks (the note says so); otherwise the
+  column is refused.
+- When nothing decides: an entry like ``1,234`` (one comma before exactly three digits) could
+  be 1.234 or 1234, so the column is refused with a message naming ``--decimal``; an entry
+  like ``1.234`` is read with a decimal point (the usual default) unless the file hints at
+  decimal commas (it is separated by ``;``, or another column has decimal commas), when it
+  is refused likewise. One column is never read half one way and half the other.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from typing import Literal
+
+import polars as pl
+
+#: Entries treated as missing in every column (compared case-insensitively).
+MISSING_WORDS = ("", "na", "n/a", "nan", "null", "none", "-", ".", "missing")
+#: Entries meaning "below detection" with no limit given (compared case-insensitively).
+BELOW_WORDS = (
+    "nd",
+    "n.d.",
+    "n.d",
+    "n/d",
+    "bdl",
+    "bql",
+    "blq",
+    "not detected",
+    "non detect",
+    "non-detect",
+    "nondetect",
+    "below detection",
+    "below detection limit",
+    "below the detection limit",
+    "below quantification limit",
+)
+#: Qualifier codes after a number that mean "not detected at this limit".
+CENSORING_QUALIFIERS = ("u", "uj", "nd")
+#: Qualifier code after a number meaning "estimated" (the value is used).
+ESTIMATED_QUALIFIER = "j"
+
+Decimal = Literal["point", "comma"]
+Mode = Literal["point", "comma", "both"]
+
+# Entry kinds.
+MISSING, NUMBER, CENSORED, NO_LIMIT, ABOVE, ESTIMATED, UNPARSED = range(7)
+_VALUE_KINDS = (NUMBER, CENSORED, ABOVE, ESTIMATED)
+
+_GAP = "[ \u00a0\u202f]"
+_EXP = "(?:[eE][+-]?[0-9]+)?"
+_SPACED = rf"[0-9]{{1,3}}(?:{_GAP}[0-9]{{3}})+"
+_NUM = rf"[+-]?(?:[0-9](?:[0-9.,\u00a0\u202f ]*[0-9])?|[.,][0-9]+){_EXP}"
+_ENTRY = rf"^(?P<op><=|>=|<|>|≤|≥)?\s*(?P<cur>[$€£¥])?\s*(?P<num>{_NUM})\s*(?P<tail>\S.*)?$"
+_UNIT = r"%|‰|[A-Za-zµμ°Ω][A-Za-z0-9µμ°Ω·.^²³_-]*(?:\s*/\s*[A-Za-z0-9µμ°Ω·.^²³_-]+)*"
+_TAIL = rf"^(?P<unit>{_UNIT})?\s*(?P<qual>(?i:uj|u|j|nd))?$"
+_BELOW_CODE = r"^(?:<=|<|≤)\s*[a-z][a-z0-9 ._-]*$"
+_BELOW_SIGNS = ["<", "<=", "≤"]
+_ABOVE_SIGNS = [">", ">=", "≥"]
+
+#: Shapes of the number part that show which mark is decimal (see the module docstring).
+_SHAPES = {
+    "single_comma": rf"^[+-]?(?:[0-9]+|{_SPACED})?,[0-9]+{_EXP}$",
+    "ambiguous_comma": r"^[+-]?[1-9][0-9]{0,2},[0-9]{3}$",
+    "single_point": rf"^[+-]?(?:[0-9]+|{_SPACED})?\.[0-9]+{_EXP}$",
+    "ambiguous_point": r"^[+-]?[1-9][0-9]{0,2}\.[0-9]{3}$",
+    "comma_groups": rf"^[+-]?[1-9][0-9]{{0,2}}(?:,[0-9]{{3}})+(?:\.[0-9]*)?{_EXP}$",
+    "point_groups": rf"^[+-]?[1-9][0-9]{{0,2}}(?:\.[0-9]{{3}})+(?:,[0-9]*)?{_EXP}$",
+    "spaced": rf"^[+-]?{_SPACED}",
+}
+#: The number part a mode accepts, and how it becomes a plain decimal-point number.
+_VALID = {
+    "point": rf"^[+-]?(?:[0-9]+|[0-9]{{1,3}}(?:,[0-9]{{3}})+|{_SPACED})?(?:\.[0-9]*)?{_EXP}$",
+    "comma": rf"^[+-]?(?:[0-9]+|[0-9]{{1,3}}(?:\.[0-9]{{3}})+|{_SPACED})?(?:,[0-9]*)?{_EXP}$",
+    "both": rf"^[+-]?[0-9]*(?:[.,][0-9]+)?{_EXP}$",
+}
+
+
+@dataclass(frozen=True)
+class MarkCounts:
+    """How many number parts of a column have each shape (keys of ``_SHAPES``)."""
+
+    counts: dict[str, int]
+    example_comma: str | None = None
+    example_point: str | None = None
+
+    def __getitem__(self, shape: str) -> int:
+        return self.counts.get(shape, 0)
+
+    @property
+    def comma_evidence(self) -> int:
+        """Entries that show the comma is the decimal mark."""
+        return (self["single_comma"] - self["ambiguous_comma"]) + (
+            self["point_groups"] - self["ambiguous_point"]
+        )
+
+    @property
+    def point_evidence(self) -> int:
+        return (self["single_point"] - self["ambiguous_point"]) + (
+            self["comma_groups"] - self["ambiguous_comma"]
+        )
+
+    @property
+    def thousands(self) -> int:
+        """Entries that certainly use a thousands separator."""
+        return (
+            (self["comma_groups"] - self["ambiguous_comma"])
+            + (self["point_groups"] - self["ambiguous_point"])
+            + self["spaced"]
+        )
+
+
+def _ambiguous(name: str, example: str, why: str) -> str:
+    mark = "," if "," in example else "."
+    whole, _, part = example.lstrip("+-").partition(mark)
+    return (
+        f"column {name!r}: {example!r} could be {whole}.{part} or {whole}{part} ({why}); "
+        "set --decimal comma or --decimal point"
+    )
+
+
+def decide_mode(
+    name: str, marks: MarkCounts, decimal: Decimal | None, comma_hint: bool
+) -> tuple[Mode, str | None]:
+    """The column's decimal mode, and why it cannot be read for sure (None when it can)."""
+    if decimal is not None:
+        return decimal, None
+    comma, point = marks.comma_evidence > 0, marks.point_evidence > 0
+    ambiguous = marks["ambiguous_comma"] + marks["ambiguous_point"]
+    if comma and point:
+        if marks.thousands or ambiguous:
+            return "point", (
+                f"column {name!r} has decimal commas and decimal points and thousands "
+                "separators, so some entries cannot be read for sure; "
+                "set --decimal comma or --decimal point"
+            )
+        return "both", None
+    if comma or point:
+        return ("comma" if comma else "point"), None
+    if marks.example_comma is not None:
+        why = "one comma before exactly three digits, and no other entry shows which"
+        return "point", _ambiguous(name, marks.example_comma, why)
+    if comma_hint and marks.example_point is not None:
+        why = "the file uses decimal commas, and no entry of this column shows which"
+        return "point", _ambiguous(name, marks.example_point, why)
+    return "point", None
+
+
+def _number(num: pl.Expr, mode: Mode) -> pl.Expr:
+    """The number part as Float64 under the mode (null when the mode does not accept it)."""
+    if mode == "point":
+        plain = num.str.replace_all(f"[,{_GAP[1:-1]}]", "")
+    elif mode == "comma":
+        plain = num.str.replace_all(f"[.{_GAP[1:-1]}]", "").str.replace(",", ".", literal=True)
+    else:
+        plain = num.str.replace(",", ".", literal=True)
+    value = pl.when(num.str.contains(_VALID[mode])).then(plain.cast(pl.Float64, strict=False))
+    return pl.when(value.is_finite()).then(value)
+
+
+def text_of(column: str) -> pl.Expr:
+    return pl.col(column).cast(pl.Utf8).str.strip_chars()
+
+
+def missing_of(text: pl.Expr) -> pl.Expr:
+    return text.is_null() | text.str.to_lowercase().is_in(list(MISSING_WORDS))
+
+
+def _entry(mode: Mode, undecided: bool = False) -> pl.Expr:
+    """A struct (value, kind, unit) from a struct (text, p) where p holds the entry's parts.
+    ``undecided``: the decimal mark is not known, so a number part any mode accepts counts
+    as a number (for deciding the column's role; such a column is refused as an outcome)."""
+    text = pl.col("text")
+    parts = pl.col("p")
+    lowered = text.str.to_lowercase()
+    tail = parts.struct.field("tail")
+    tail_parts = tail.str.extract_groups(_TAIL)
+    unit = tail_parts.struct.field("unit")
+    qual = tail_parts.struct.field("qual").str.to_lowercase()
+    lone = qual.is_null() & unit.str.to_lowercase().is_in(
+        [*CENSORING_QUALIFIERS, ESTIMATED_QUALIFIER]
+    )
+    qual = pl.when(lone).then(unit.str.to_lowercase()).otherwise(qual)
+    unit = pl.when(lone).then(None).otherwise(unit)
+    op = parts.struct.field("op")
+    num = parts.struct.field("num")
+    modes: tuple[Mode, ...] = ("point", "comma", "both") if undecided else (mode,)
+    number = pl.coalesce([_number(num, each) for each in modes])
+    parsed = number.is_not_null() & (tail.is_null() | tail.str.contains(_TAIL))
+    below = op.is_in(_BELOW_SIGNS) | qual.is_in(list(CENSORING_QUALIFIERS))
+    kind = (
+        pl.when(missing_of(text))
+        .then(MISSING)
+        .when(lowered.is_in(list(BELOW_WORDS)) | lowered.str.contains(_BELOW_CODE))
+        .then(NO_LIMIT)
+        .when(~parsed)
+        .then(UNPARSED)
+        .when(below)
+        .then(CENSORED)
+        .when(op.is_in(_ABOVE_SIGNS))
+        .then(ABOVE)
+        .when(qual == ESTIMATED_QUALIFIER)
+        .then(ESTIMATED)
+        .otherwise(NUMBER)
+        .cast(pl.UInt8)
+    )
+    full_unit = pl.concat_str([parts.struct.field("cur"), unit], ignore_nulls=True)
+    full_unit = pl.when(parsed & (full_unit != "")).then(full_unit.str.replace_all("μ", "µ"))
+    return pl.struct(
+        value=pl.when(kind.is_in(list(_VALUE_KINDS))).then(number), kind=kind, unit=full_unit
+    )
+
+
+@dataclass(frozen=True)
+class ColumnReading:
+    """What reading one column's entries found (counts of non-missing entries)."""
+
+    name: str
+    entries: int = 0
+    numbers: int = 0
+    censored: int = 0
+    censored_without_limit: int = 0
+    above_range: int = 0
+    estimated: int = 0
+    unparsed: int = 0
+    unparsed_examples: tuple[tuple[str, int], ...] = ()
+    units: tuple[str, ...] = ()
+    without_unit: int = 0
+    mode: Mode = "point"
+    thousands: bool = False
+    problem: str | None = None
+
+    @property
+    def numeric_like(self) -> int:
+        """Entries that are numbers or recognised codes (below detection, above range)."""
+        return self.entries - self.unparsed
+
+    @property
+    def share(self) -> float:
+        """The share of non-missing entries that are numbers or recognised codes."""
+        return self.numeric_like / self.entries if self.entries else 0.0
+
+    @property
+    def unit_problem(self) -> str | None:
+        if len(self.units) < 2:
+            return None
+        return (
+            f"column {self.name!r} has entries in different units ({', '.join(self.units)}); "
+            "convert them to one unit in the file, or name the other outcomes with --outcome"
+        )
+
+    def notes(self) -> list[str]:
+        """One line per thing the reader did that the user should know."""
+        notes = [*self._format_notes(), *self._code_notes()]
+        if self.unparsed_examples:
+            shown = ", ".join(f"{text!r} ({count})" for text, count in self.unparsed_examples)
+            more = " …" if sum(c for _, c in self.unparsed_examples) < self.unparsed else ""
+            notes.append(f"{self.name}: entries not read as numbers: {shown}{more}")
+        return notes
+
+    def _format_notes(self) -> list[str]:
+        notes = []
+        if self.mode == "comma":
+            grouping = "; points separate thousands (1.234 = 1234)" if self.thousands else ""
+            notes.append(f"{self.name}: read with decimal commas (12,5 = 12.5){grouping}")
+        elif self.mode == "both":
+            notes.append(f"{self.name}: both 12,5 and 12.5 occur; both read as decimal marks")
+        elif self.thousands:
+            notes.append(f"{self.name}: commas or spaces separate thousands (1,234 = 1234)")
+        if self.units == ("%",):
+            notes.append(f"{self.name}: entries are percentages (15% read as 15)")
+        elif len(self.units) == 1:
+            bare = f"; {self.without_unit} entries without a unit taken to be in it too"
+            notes.append(
+                f"{self.name}: cells carry the unit {self.units[0]}; read as numbers in "
+                f"{self.units[0]}{bare if self.without_unit else ''}"
+            )
+        return notes
+
+    def _code_notes(self) -> list[str]:
+        notes = []
+        if self.censored_without_limit:
+            notes.append(
+                f"{self.name}: {self.censored_without_limit} entries below detection without "
+                "a limit (ND, <LOD, ...) were left out"
+            )
+        if self.above_range:
+            notes.append(
+                f"{self.name}: {self.above_range} entries above the measuring range (>x) are "
+                "used at the stated number, which understates them"
+            )
+        if self.estimated:
+            notes.append(
+                f"{self.name}: {self.estimated} entries marked J (estimated) are used as given"
+            )
+        return notes
+
+
+@dataclass(frozen=True)
+class ParsedColumn:
+    """One column read as numbers: values, censored flags and what the reading found."""
+
+    value: pl.Series
+    censored: pl.Series
+    reading: ColumnReading = field(compare=False)
+
+
+def _plain_counts(texts: pl.DataFrame) -> dict[str, tuple[int, int]]:
+    """Per column: (non-missing entries, entries that are plain finite numbers). Missing
+    words are looked for only among the entries that are not plain numbers."""
+    exprs = []
+    for index, name in enumerate(texts.columns):
+        text = pl.col(name)
+        finite = text.cast(pl.Float64, strict=False).is_finite()
+        others = text.filter(text.is_not_null() & ~finite.fill_null(False))
+        words = others.str.to_lowercase().is_in(list(MISSING_WORDS)).sum()
+        exprs.append((pl.len() - text.null_count() - words).alias(f"{index}e"))
+        exprs.append(finite.sum().alias(f"{index}p"))
+    row = texts.select(exprs).row(0) if exprs else ()
+    return {name: (row[2 * i], row[2 * i + 1]) for i, name in enumerate(texts.columns)}
+
+
+def _unique_parts(texts: pl.DataFrame, columns: Sequence[str]) -> dict[str, pl.DataFrame]:
+    """Per column, its distinct entries (``text``, null included) with their parts (``p``):
+    entries repeat, so each spelling is read once."""
+    return {
+        name: texts.select(pl.col(name).unique().alias("text")).with_columns(
+            pl.col("text").str.extract_groups(_ENTRY).alias("p")
+        )
+        for name in columns
+    }
+
+
+def _mark_counts(uniques: dict[str, pl.DataFrame]) -> dict[str, MarkCounts]:
+    """Shapes of the distinct number parts of each column (distinct entries suffice: every
+    decision asks only whether some entry has a shape)."""
+    result = {}
+    for name, frame in uniques.items():
+        num = pl.col("p").struct.field("num")
+        exprs = [num.str.contains(p).sum().alias(shape) for shape, p in _SHAPES.items()]
+        for mark in ("comma", "point"):
+            ambiguous = num.filter(num.str.contains(_SHAPES[f"ambiguous_{mark}"]))
+            exprs.append(ambiguous.min().alias(f"example_{mark}"))
+        row = frame.select(exprs).row(0, named=True)
+        shapes = {shape: int(row[shape] or 0) for shape in _SHAPES}
+        result[name] = MarkCounts(shapes, row["example_comma"], row["example_point"])
+    return result
+
+
+def _units(entries: pl.DataFrame) -> tuple[tuple[str, ...], int]:
+    """The distinct units (first spelling of each, case-insensitively) and the count of
+    value entries without a unit (when there are units)."""
+    spellings: dict[str, str] = {}
+    for spelling in entries["unit"].drop_nulls().unique().sort().to_list():
+        spellings.setdefault(spelling.casefold(), spelling)
+    if not spellings:
+        return (), 0
+    bare = entries.select((pl.col("value").is_not_null() & pl.col("unit").is_null()).sum())
+    return tuple(sorted(spellings.values())), int(bare.item())
+
+
+def _examples(entries: pl.DataFrame, limit: int = 4) -> tuple[tuple[str, int], ...]:
+    unparsed = entries.filter(pl.col("kind") == UNPARSED)["text"]
+    counts = unparsed.value_counts(sort=True, name="n").head(limit)
+    return tuple((str(t), int(n)) for t, n in counts.rows())
+
+
+def _read_parsed(
+    texts: pl.DataFrame,
+    unique: pl.DataFrame,
+    mode: Mode,
+    marks: MarkCounts,
+    problem: str | None,
+) -> ParsedColumn:
+    """One column read by the full rules: its distinct entries are read, then mapped back."""
+    name = texts.columns[0]
+    read = unique.select("text", _entry(mode, problem is not None).alias("e")).unnest("e")
+    entries = texts.rename({name: "text"}).join(
+        read, on="text", how="left", nulls_equal=True, maintain_order="left"
+    )
+    kinds = dict(entries["kind"].value_counts().rows())
+    counts = {kind: int(kinds.get(kind, 0)) for kind in range(7)}
+    units, without_unit = _units(entries)
+    reading = ColumnReading(
+        name=name,
+        entries=entries.height - counts[MISSING],
+        numbers=counts[NUMBER],
+        censored=counts[CENSORED],
+        censored_without_limit=counts[NO_LIMIT],
+        above_range=counts[ABOVE],
+        estimated=counts[ESTIMATED],
+        unparsed=counts[UNPARSED],
+        unparsed_examples=_examples(entries) if counts[UNPARSED] else (),
+        units=units,
+        without_unit=without_unit,
+        mode=mode,
+        thousands=marks.thousands > 0,
+        problem=problem,
+    )
+    censored = (entries["kind"] == CENSORED).alias(name)
+    return ParsedColumn(entries["value"].alias(name), censored, reading)
+
+
+def _plain(
+    texts: pl.DataFrame, columns: Sequence[str], counts: dict[str, tuple[int, int]]
+) -> dict[str, ParsedColumn]:
+    """Columns of plain numbers only (missing words read as null: none is a finite number)."""
+    values = texts.select(
+        pl.when(number.is_finite()).then(number).alias(name)
+        for name in columns
+        for number in [pl.col(name).cast(pl.Float64, strict=False)]
+    )
+    never = pl.repeat(False, texts.height, dtype=pl.Boolean, eager=True)
+    return {
+        name: ParsedColumn(
+            values[name],
+            never.alias(name),
+            ColumnReading(name, entries=counts[name][0], numbers=counts[name][0]),
+        )
+        for name in columns
+    }
+
+
+def _doubtful_plain(texts: pl.DataFrame, plain: list[str]) -> list[str]:
+    """The plain-number columns holding an entry like 1.234 (could be 1234 with a decimal
+    comma): under a decimal-comma hint they are read by the full rules."""
+    if not plain:
+        return []
+    flags = texts.select(
+        pl.col(c).str.contains(_SHAPES["ambiguous_point"]).any() for c in plain
+    ).row(0)
+    return [c for c, flag in zip(plain, flags, strict=True) if flag]
+
+
+def _shows_decimal_commas(marks: Iterable[MarkCounts]) -> bool:
+    return any(m.comma_evidence > 0 and m.point_evidence == 0 for m in marks)
+
+
+def read_columns(
+    frame: pl.DataFrame,
+    columns: Sequence[str],
+    *,
+    decimal: Decimal | None = None,
+    comma_hint: bool = False,
+) -> dict[str, ParsedColumn]:
+    """Read the named text columns of ``frame`` as numbers by the module's rules.
+
+    ``comma_hint`` says the file hints at decimal commas (it is separated by ``;``); a
+    column that shows decimal commas gives the same hint for the others. A column that
+    cannot be read for sure carries its reason in ``reading.problem`` (and mixed units in
+    ``reading.unit_problem``); the caller refuses it only if it is used as an outcome."""
+    texts = frame.select(text_of(c).alias(c) for c in columns)
+    counts = _plain_counts(texts)
+    # Columns of plain numbers only take the fast path (unless decimal commas are forced).
+    plain = [c for c in columns if decimal != "comma" and counts[c][0] == counts[c][1]]
+    parsed = [c for c in columns if c not in plain]
+    uniques = _unique_parts(texts, parsed)
+    marks = _mark_counts(uniques)
+    hint = comma_hint or _shows_decimal_commas(marks.values())
+    if hint and decimal is None:
+        moved = _doubtful_plain(texts, plain)
+        plain = [c for c in plain if c not in moved]
+        uniques |= _unique_parts(texts, moved)
+        marks |= _mark_counts({c: uniques[c] for c in moved})
+        parsed += moved
+    result = _plain(texts, plain, counts)
+    for name in parsed:
+        mode, problem = decide_mode(name, marks[name], decimal, hint)
+        result[name] = _read_parsed(texts.select(name), uniques[name], mode, marks[name], problem)
+    return {c: result[c] for c in columns}

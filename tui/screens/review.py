@@ -1,0 +1,373 @@
+"""The review screen: the status line, the filter line, the list of comparisons and the
+detail of the highlighted one.
+
+The screen holds the state of the view (sort, filter, pane sizes, the status message) as
+reactives and sets its widgets from them and from the session ("attributes down"); widgets
+tell it what happened by messages ("messages up"). Keys become calls on the session: flags,
+decisions, notes, cross-checks and exports all go through ``ReviewSession``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from pathlib import Path
+from typing import Literal, get_args
+
+import polars as pl
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.css.query import NoMatches
+from textual.reactive import reactive
+from textual.screen import Screen
+from textual.widgets import Footer, Input
+from textual.worker import get_current_worker
+
+from foldsift.stats.robust import CheckJob
+from foldsift.stats.sentence import readable_outcome, stratum_phrase
+from foldsift.stats.vocabulary import DECISIONS, choose
+
+from ..messages import CrossCheckDone, CrossCheckProgress
+from ..session import DEFAULT_SORT, ReviewSession, Selection
+from ..store import ReviewStoreError
+from ..widgets.comparison_list import SORT_NAMES, SORTABLE, ComparisonList
+from ..widgets.detail import Detail, Subject
+from ..widgets.status_line import Notice, StatusLine, ViewSummary
+from .dialogs import ConfirmScreen, ExportChoice, ExportScreen, NoteScreen
+
+#: The pane sizes ``z`` steps through; the screen carries the class of any but the first.
+PaneLayout = Literal["balanced", "detail-large", "list-large"]
+PANE_LAYOUTS: tuple[PaneLayout, ...] = get_args(PaneLayout)
+
+#: Actions on the list, which do nothing while the filter line has the keys.
+LIST_ACTIONS = frozenset(
+    {
+        "focus_filter",
+        "toggle_flag",
+        "edit_note",
+        "decide",
+        "clear_decision",
+        "robust",
+        "robust_shown",
+        "export",
+        "next_sort",
+        "reverse_sort",
+    }
+)
+CROSS_CHECK_ACTIONS = frozenset({"robust", "robust_shown"})
+FILTER_HINT = (
+    "filter: words · q<0.05 · ratio>2 · outside:0.8,1.25 · warned · flagged · undecided"
+    "  (/ to type, ? for all)"
+)
+
+
+class ReviewScreen(Screen[None]):
+    """Triage every comparison of one session."""
+
+    BINDINGS = [
+        # A priority binding acts as the key arrives, before the keys queued behind it are
+        # handed on: "/copper" typed fast (or pasted over SSH) all lands in the filter line.
+        Binding("slash", "focus_filter", "Filter", id="app.filter", priority=True),
+        Binding("s", "next_sort", "Sort", id="app.sort"),
+        Binding("r", "reverse_sort", "Reverse", show=False, id="app.reverse"),
+        Binding("space", "toggle_flag", "Flag", id="app.flag"),
+        Binding("n", "edit_note", "Note", id="app.note"),
+        Binding("1", "decide('keep')", "Keep·2 Doubt·3 Drop", id="app.keep"),
+        Binding("2", "decide('doubt')", "Doubt", show=False, id="app.doubt"),
+        Binding("3", "decide('drop')", "Drop", show=False, id="app.drop"),
+        Binding("0", "clear_decision", "Undecide", show=False, id="app.undecide"),
+        Binding("b", "robust", "Cross-check", id="app.robust"),
+        Binding("B", "robust_shown", "Cross-check shown", show=False, id="app.robust_shown"),
+        Binding("escape", "stop_checks", "Stop checks", show=False, id="app.stop_checks"),
+        Binding("x", "export", "Export", id="app.export"),
+        Binding("z", "cycle_panes", "Panes", id="app.panes"),
+    ]
+
+    sort_on: reactive[str] = reactive(DEFAULT_SORT, init=False)
+    descending: reactive[bool] = reactive(False, init=False)
+    filter_text: reactive[str] = reactive("", init=False)
+    panes: reactive[PaneLayout] = reactive("balanced", init=False)
+    notice: reactive[Notice | None] = reactive(None, init=False)
+
+    def __init__(
+        self, session: ReviewSession, *, export_dir: Path, check_all_on_open: bool = False
+    ) -> None:
+        super().__init__()
+        self.session = session
+        self.export_dir = export_dir
+        self._check_all_on_open = check_all_on_open
+        self._note: tuple[str, str] | None = None  # key and saved text of the open note
+
+    # -- layout and the view ---------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        yield StatusLine(id="status")
+        yield Input(placeholder=FILTER_HINT, id="filter")
+        yield ComparisonList(id="list")
+        yield Detail(self.session.result.settings.band, self.session.group_values, id="detail")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self._sort_changed()
+        self.notice = self._opening_notice()
+        self.query_one(ComparisonList).focus()
+        if self._check_all_on_open:
+            self.action_robust_shown()
+
+    def _opening_notice(self) -> Notice:
+        text = f"reviews are saved as you go in {self.session.store.path}"
+        earlier = self.session.counts()["earlier"]
+        if earlier:
+            text += f"; {earlier} review(s) were made on an earlier version of the data (italics)"
+        return Notice(text)
+
+    def _show_view(self) -> None:
+        """The session's view in the list, the cursor at the top."""
+        self.query_one(ComparisonList).show(self.session.view())
+        self._show_summary()
+
+    def _show_summary(self) -> None:
+        counts = self.session.counts()
+        self.query_one(StatusLine).summary = ViewSummary(
+            shown=self.query_one(ComparisonList).frame.height,
+            total=counts["all"],
+            flagged=counts["flagged"],
+            decided=counts["decided"],
+            sort=SORT_NAMES.get(self.sort_on, self.sort_on),
+            descending=self.descending,
+            filter=self.filter_text,
+            filter_error=self.session.filter_error,
+        )
+
+    def _show_detail(self) -> None:
+        try:
+            row = self.query_one(ComparisonList).current_row
+            detail = self.query_one(Detail)
+        except NoMatches:  # a late message while the screen closes
+            return
+        check = None if row is None else self.session.checks.get(row["key"])
+        detail.subject = Subject(row, check)
+
+    @on(ComparisonList.Highlighted)
+    def _highlighted(self) -> None:
+        self._show_detail()
+
+    def watch_notice(self, notice: Notice | None) -> None:
+        self.query_one(StatusLine).notice = notice
+
+    def watch_panes(self, old: PaneLayout, new: PaneLayout) -> None:
+        self.set_class(False, old)
+        self.set_class(new != "balanced", new)
+
+    def action_cycle_panes(self) -> None:
+        """Balanced, a large detail, or a large list (for small terminals)."""
+        self.panes = PANE_LAYOUTS[(PANE_LAYOUTS.index(self.panes) + 1) % len(PANE_LAYOUTS)]
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        if action in CROSS_CHECK_ACTIONS and not self.session.can_cross_check:
+            return None  # a summary table has no values to cross-check
+        return not (isinstance(self.focused, Input) and action in LIST_ACTIONS)
+
+    # -- sort and filter -------------------------------------------------------------------
+    def watch_sort_on(self) -> None:
+        self._sort_changed()
+
+    def watch_descending(self) -> None:
+        self._sort_changed()
+
+    def _sort_changed(self) -> None:
+        self.session.set_sort(self.sort_on, self.descending)
+        listing = self.query_one(ComparisonList)
+        listing.sort_on, listing.descending = self.sort_on, self.descending
+        self._show_view()
+
+    def action_next_sort(self) -> None:
+        index = SORTABLE.index(self.sort_on) if self.sort_on in SORTABLE else -1
+        self.sort_on = SORTABLE[(index + 1) % len(SORTABLE)]
+
+    def action_reverse_sort(self) -> None:
+        self.descending = not self.descending
+
+    @on(ComparisonList.HeaderClicked)
+    def _header_clicked(self, message: ComparisonList.HeaderClicked) -> None:
+        if message.sort_on == self.sort_on:
+            self.descending = not self.descending
+            return
+        self.set_reactive(ReviewScreen.descending, False)  # one re-sort, not two
+        self.sort_on = message.sort_on
+
+    def watch_filter_text(self, text: str) -> None:
+        self.session.set_filter(text)
+        self._show_view()
+
+    @on(Input.Changed, "#filter")
+    def _filter_changed(self, event: Input.Changed) -> None:
+        self.filter_text = event.value
+
+    @on(Input.Submitted, "#filter")
+    def _filter_submitted(self) -> None:
+        self.query_one(ComparisonList).focus()
+
+    def action_focus_filter(self) -> None:
+        # Focus at once, not on the next idle (Widget.focus): keys typed right after "/"
+        # must land in the filter, not in the list.
+        self.set_focus(self.query_one("#filter", Input))
+
+    # -- reviewing -------------------------------------------------------------------------
+    def _review(self, change: Callable[[str], object], key: str | None = None) -> None:
+        """Save one change of the row ``key`` (default: the highlighted one) and show it.
+
+        The row stays where it is even if it no longer matches the filter or the sort: a row
+        that vanished under the cursor would make the next key act on its neighbour. Editing
+        the filter or sorting again applies them afresh."""
+        listing = self.query_one(ComparisonList)
+        key = key or listing.current_key
+        if key is None:
+            return
+        try:
+            change(key)
+        except ReviewStoreError as error:
+            self.notice = Notice(f"NOT SAVED: {error}", "error")
+            self.app.bell()
+            return
+        listing.update_rows(self.session.apply_review(listing.frame, key))
+        self._show_summary()
+        self._show_detail()
+
+    def action_toggle_flag(self) -> None:
+        self._review(self.session.toggle_flag)
+
+    def action_decide(self, decision: str) -> None:
+        chosen = choose(decision, DECISIONS, "decision")
+        self._review(lambda key: self.session.decide(key, chosen))
+
+    def action_clear_decision(self) -> None:
+        self._review(lambda key: self.session.decide(key, None))
+
+    def action_edit_note(self) -> None:
+        row = self.query_one(ComparisonList).current_row
+        if row is None:
+            return
+        key, before = row["key"], row["note"]
+        title = (
+            f"Note: {readable_outcome(row['outcome'])}, {row['level_b']} ÷ {row['level_a']} "
+            f"({row['grouping']}{stratum_phrase(row)})"
+        )
+
+        def done(text: str | None) -> None:
+            self._note = None
+            if text is not None:
+                self._review(lambda k: self.session.set_note(k, text), key)
+
+        self._note = (key, before)
+        self.app.push_screen(NoteScreen(title, before), done)
+
+    def keep_open_note(self) -> None:
+        """Save what the note editor holds, if it is open and changed (quitting from the
+        editor keeps what was typed)."""
+        editor = self.app.screen
+        if self._note is None or not isinstance(editor, NoteScreen):
+            return
+        key, before = self._note
+        text = editor.text
+        if text != before:
+            self._review(lambda k: self.session.set_note(k, text), key)
+
+    # -- cross-checks ----------------------------------------------------------------------
+    def action_robust(self) -> None:
+        """Cross-checks for the highlighted comparison."""
+        listing = self.query_one(ComparisonList)
+        if listing.frame.height:
+            row = listing.frame.slice(listing.cursor_row, 1)
+            self._start_checks(row, "this comparison already has its cross-checks")
+
+    def action_robust_shown(self) -> None:
+        """Cross-checks for every comparison the list shows that has none yet."""
+        frame = self.query_one(ComparisonList).frame
+        self._start_checks(frame, "every shown comparison already has its cross-checks")
+
+    def action_stop_checks(self) -> None:
+        self.workers.cancel_group(self, "cross-checks")
+
+    def _start_checks(self, frame: pl.DataFrame, none_left: str) -> None:
+        jobs = self.session.check_jobs(frame)
+        if not jobs:
+            self.notice = Notice(none_left)
+            return
+        resamples = self.session.options.resamples
+        self.notice = Notice(f"cross-checks: 0/{len(jobs)} (bootstrap {resamples:,} resamples)")
+        self._run_checks(jobs)
+
+    @work(thread=True, exclusive=True, group="cross-checks")
+    def _run_checks(self, jobs: list[CheckJob]) -> None:
+        """Compute in this thread, record on the main thread (messages)."""
+        worker = get_current_worker()
+        done = 0
+        for job in jobs:
+            if worker.is_cancelled:
+                break
+            key = job[0]
+            try:
+                check = self.session.run_check(job)
+            except Exception as error:  # a numerical failure must not end the session
+                self.post_message(CrossCheckDone(key, None, str(error)))
+                continue
+            done += 1
+            self.post_message(CrossCheckDone(key, check))
+            self.post_message(CrossCheckProgress(done, len(jobs)))
+        self.post_message(CrossCheckProgress(done, len(jobs), finished=True))
+
+    @on(CrossCheckDone)
+    def _check_done(self, message: CrossCheckDone) -> None:
+        if message.check is None:
+            self.notice = Notice(
+                f"cross-checks failed for one comparison: {message.error}", "error"
+            )
+            return
+        self.session.record(message.key, message.check)
+        if message.key == self.query_one(ComparisonList).current_key:
+            self._show_detail()
+
+    @on(CrossCheckProgress)
+    def _check_progress(self, message: CrossCheckProgress) -> None:
+        done, total = message.done, message.total
+        if message.finished and done < total:
+            self.notice = Notice(f"cross-checks stopped after {done}/{total}")
+        elif message.finished:
+            self.notice = Notice(f"cross-checks done for {done} comparison(s)")
+        else:
+            filled = round(20 * done / max(total, 1))
+            bar = "#" * filled + "." * (20 - filled)
+            self.notice = Notice(f"cross-checks [{bar}] {done}/{total} · escape stops")
+
+    # -- export ----------------------------------------------------------------------------
+    def action_export(self) -> None:
+        counts = self.session.counts()
+        choices: dict[Selection, int] = {
+            "flagged": counts["flagged"],
+            "decided": counts["decided"],
+            "shown": self.session.view().height,
+            "all": counts["all"],
+        }
+        default = self.export_dir / f"{self.session.options.data_path.stem}-findings.csv"
+        self.app.push_screen(ExportScreen(default, choices), self._export_chosen)
+
+    def _export_chosen(self, choice: ExportChoice | None) -> None:
+        if choice is None:
+            return
+        if not choice.path.exists():
+            self._export(choice, overwrite=False)
+            return
+
+        def answered(replace: bool | None) -> None:
+            if replace:
+                self._export(choice, overwrite=True)
+
+        self.app.push_screen(ConfirmScreen(f"{choice.path} exists. Replace it?"), answered)
+
+    def _export(self, choice: ExportChoice, *, overwrite: bool) -> None:
+        try:
+            report = self.session.export(choice.path, choice.rows, overwrite=overwrite)
+        except (OSError, ValueError) as error:
+            self.notice = Notice(f"export failed: {error}", "error")
+            return
+        self.notice = Notice(f"exported {report.rows} row(s) to {report.path}")
