@@ -27,6 +27,9 @@ Each entry is trimmed, then read by these rules (codes compared case-insensitive
 - **Below detection without a number** (:data:`BELOW_WORDS`: ``ND``, ``n.d.``, ``BDL``,
   ``not detected`` ..., and ``<`` before a word: ``<LOD``, ``<LOQ``, ``<RL``): censored with no
   known limit; left out and counted.
+- **Labels that start with a number** are text, not numbers: ordinals (``1st``, ``2nd``)
+  and codes of a number and one letter that differs between entries (``1A``, ``1B``,
+  ``2A``: plot or sample codes, not units).
 - Anything else is **unparsed**: left out, counted, and its spellings named.
 
 **Decimal mark**, decided per column from all of its entries (``--decimal`` overrides):
@@ -97,6 +100,7 @@ _UNIT = r"%|‰|[A-Za-zµμ°Ω][A-Za-z0-9µμ°Ω·.^²³_-]*(?:\s*/\s*[A-Za-z0
 _TAIL = rf"^(?P<unit>{_UNIT})?\s*(?P<qual>(?i:uj|u|j|nd))?$"
 _BELOW_CODE = r"^(?:<=|<|≤)\s*[a-z][a-z0-9 ._-]*$"
 _BELOW_SIGNS = ["<", "<=", "≤"]
+_ORDINAL = r"(?i)^[0-9]*(?:1st|2nd|3rd|[0-9]th)$"
 _ABOVE_SIGNS = [">", ">=", "≥"]
 
 #: Shapes of the number part that show which mark is decimal (see the module docstring).
@@ -171,9 +175,9 @@ def decide_mode(
     if comma and point:
         if marks.thousands or ambiguous:
             return "point", (
-                f"column {name!r} has decimal commas and decimal points and thousands "
-                "separators, so some entries cannot be read for sure; "
-                "set --decimal comma or --decimal point"
+                f"column {name!r} uses both a decimal comma and a decimal point, and some "
+                "of its entries (thousands separators, or like 1,234) could be read either "
+                "way; set --decimal comma or --decimal point"
             )
         return "both", None
     if comma or point:
@@ -252,6 +256,10 @@ def _entry(mode: Mode, undecided: bool = False) -> pl.Expr:
     )
 
 
+def _entries(count: int) -> str:
+    return f"{count} entry" if count == 1 else f"{count} entries"
+
+
 @dataclass(frozen=True)
 class ColumnReading:
     """What reading one column's entries found (counts of non-missing entries)."""
@@ -311,7 +319,7 @@ class ColumnReading:
         if self.units == ("%",):
             notes.append(f"{self.name}: entries are percentages (15% read as 15)")
         elif len(self.units) == 1:
-            bare = f"; {self.without_unit} entries without a unit taken to be in it too"
+            bare = f"; {_entries(self.without_unit)} without a unit taken to be in it too"
             notes.append(
                 f"{self.name}: cells carry the unit {self.units[0]}; read as numbers in "
                 f"{self.units[0]}{bare if self.without_unit else ''}"
@@ -322,17 +330,17 @@ class ColumnReading:
         notes = []
         if self.censored_without_limit:
             notes.append(
-                f"{self.name}: {self.censored_without_limit} entries below detection without "
-                "a limit (ND, <LOD, ...) were left out"
+                f"{self.name}: {_entries(self.censored_without_limit)} below detection "
+                "without a limit (ND, <LOD, ...) left out"
             )
         if self.above_range:
             notes.append(
-                f"{self.name}: {self.above_range} entries above the measuring range (>x) are "
+                f"{self.name}: {_entries(self.above_range)} above the measuring range (>x) "
                 "used at the stated number, which understates them"
             )
         if self.estimated:
             notes.append(
-                f"{self.name}: {self.estimated} entries marked J (estimated) are used as given"
+                f"{self.name}: {_entries(self.estimated)} marked J (estimated) used as given"
             )
         return notes
 
@@ -391,8 +399,8 @@ def _mark_counts(uniques: dict[str, pl.DataFrame]) -> dict[str, MarkCounts]:
 def _units(entries: pl.DataFrame) -> tuple[tuple[str, ...], int]:
     """The distinct units (first spelling of each, case-insensitively) and the count of
     value entries without a unit (when there are units)."""
-    spellings: dict[str, str] = {}
-    for spelling in entries["unit"].drop_nulls().unique().sort().to_list():
+    spellings: dict[str, str] = {}  # the most frequent spelling of each unit
+    for spelling, _ in _by_count(entries["unit"].drop_nulls(), limit=None):
         spellings.setdefault(spelling.casefold(), spelling)
     if not spellings:
         return (), 0
@@ -400,10 +408,32 @@ def _units(entries: pl.DataFrame) -> tuple[tuple[str, ...], int]:
     return tuple(sorted(spellings.values())), int(bare.item())
 
 
+def _by_count(values: pl.Series, limit: int | None) -> tuple[tuple[str, int], ...]:
+    """Distinct values with their counts, most frequent first (ties in text order)."""
+    counts = values.value_counts(name="n").sort(["n", values.name], descending=[True, False])
+    rows = counts.rows() if limit is None else counts.head(limit).rows()
+    return tuple((str(text), int(n)) for text, n in rows)
+
+
 def _examples(entries: pl.DataFrame, limit: int = 4) -> tuple[tuple[str, int], ...]:
-    unparsed = entries.filter(pl.col("kind") == UNPARSED)["text"]
-    counts = unparsed.value_counts(sort=True, name="n").head(limit)
-    return tuple((str(t), int(n)) for t, n in counts.rows())
+    return _by_count(entries.filter(pl.col("kind") == UNPARSED)["text"], limit)
+
+
+def _labels_as_text(read: pl.DataFrame) -> pl.DataFrame:
+    """Ordinals (1st, 2nd, 3rd, 4th) and entries like 1A, 1B, 2A (a number and one letter
+    that differs between entries: plot or sample codes) are labels, not numbers in units or
+    with a qualifier: read them as text."""
+    units = read["unit"].drop_nulls().str.to_lowercase().unique()
+    ordinal = pl.col("text").str.contains(_ORDINAL)
+    if units.len() < 2 or not units.str.contains(r"^[a-z]$").all():
+        coded = ordinal
+    else:
+        coded = ordinal | pl.col("unit").is_not_null()
+    return read.with_columns(
+        pl.when(coded).then(None).otherwise(pl.col("value")).alias("value"),
+        pl.when(coded).then(UNPARSED).otherwise(pl.col("kind")).cast(pl.UInt8).alias("kind"),
+        pl.when(coded).then(None).otherwise(pl.col("unit")).alias("unit"),
+    )
 
 
 def _read_parsed(
@@ -415,7 +445,9 @@ def _read_parsed(
 ) -> ParsedColumn:
     """One column read by the full rules: its distinct entries are read, then mapped back."""
     name = texts.columns[0]
-    read = unique.select("text", _entry(mode, problem is not None).alias("e")).unnest("e")
+    read = _labels_as_text(
+        unique.select("text", _entry(mode, problem is not None).alias("e")).unnest("e")
+    )
     entries = texts.rename({name: "text"}).join(
         read, on="text", how="left", nulls_equal=True, maintain_order="left"
     )
@@ -499,6 +531,7 @@ def read_columns(
     marks = _mark_counts(uniques)
     hint = comma_hint or _shows_decimal_commas(marks.values())
     if hint and decimal is None:
+        # Under a decimal-comma hint, 1.234 among plain numbers is read by the full rules.
         moved = _doubtful_plain(texts, plain)
         plain = [c for c in plain if c not in moved]
         uniques |= _unique_parts(texts, moved)

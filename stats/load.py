@@ -215,11 +215,14 @@ def _is_text(dtype: pl.DataType) -> bool:
 
 _ARTICLE = {"grouping": "a", "outcome": "an"}
 _ID_NAME = re.compile(r"(^|[_ .-])(id|no|num|number|index|idx|sample|row)$", re.IGNORECASE)
-_INTEGER = r"^[+-]?[0-9]+$"
+#: A whole number as written, maybe before a unit (``12``, ``10 mg``, ``20%``; not ``12.0``
+#: nor ``1e3``).
+_INTEGER = r"^[$€£¥]?\s*[+-]?[0-9]+(?:$|[^0-9.,eE])"
 
 
 def _integer_like(frame: pl.DataFrame, name: str, value: pl.Series) -> bool:
-    """Every entry that gives a number is written as a whole number (``12``, not ``12.0``)."""
+    """Every entry that gives a number is written as a whole number (``12``, ``10 mg``;
+    not ``12.0``)."""
     numbers = value.drop_nulls()
     if numbers.len() == 0 or not (numbers % 1 == 0).all():
         return False
@@ -243,8 +246,11 @@ Role = Literal["grouping", "outcome"] | None
 
 def _text_role(frame: pl.DataFrame, name: str, parsed: ParsedColumn, distinct: int) -> Role:
     """The role of a text column: numbers (mostly) or labels."""
-    if parsed.reading.entries and parsed.reading.share >= NUMERIC_SHARE:
-        if _integer_like(frame, name, parsed.value):
+    reading = parsed.reading
+    if reading.entries and reading.share >= NUMERIC_SHARE:
+        # Detection limits and range codes mark measurements, never labels.
+        coded = reading.censored + reading.censored_without_limit + reading.above_range
+        if not coded and _integer_like(frame, name, parsed.value):
             numbers = parsed.value.drop_nulls()
             if _looks_like_identifier(name, numbers):
                 return None  # a sample number, not a measurement nor a grouping

@@ -44,6 +44,7 @@ import polars as pl
 from .errors import InputError
 
 _HEAD_BYTES = 64 * 1024
+_UTF16_MARKS = (codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)
 _PARQUET_SUFFIXES = (".parquet", ".pq")
 _SEPARATORS = ",\t;|"
 _UTF8_SEQUENCE = re.compile(
@@ -71,19 +72,22 @@ def _open_error(path: Path, error: OSError) -> InputError:
     )
 
 
-def _check_head(path: Path, head: bytes) -> None:
-    """Refuse an empty or binary input from its first bytes (before reading an endless one)."""
+def _check_head(path: Path, head: bytes, encoding: str | None) -> None:
+    """Refuse an empty or binary input from its first bytes (before reading an endless one).
+    NUL bytes are text in UTF-16 and UTF-32, so they are allowed with a byte-order mark or
+    a given encoding."""
     if not head.strip():
         raise InputError(f"{path}: is empty; give a table with a header row and data rows")
-    if head.startswith((b"PAR1", codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+    if encoding is not None or head.startswith((b"PAR1", *_UTF16_MARKS)):
         return
     if b"\x00" in head:
         raise InputError(
-            f"{path}: looks like a binary file, not text; give a CSV, TSV or Parquet file"
+            f"{path}: looks like a binary file, not text; give a CSV, TSV or Parquet file "
+            "(UTF-16 text without a byte-order mark needs --encoding utf-16)"
         )
 
 
-def read_bytes(path: Path) -> bytes:
+def read_bytes(path: Path, encoding: str | None = None) -> bytes:
     """The whole input, read once; an empty or binary input is refused from its head."""
     if not path.exists():
         raise InputError(f"{path}: no such file; check the path and try again")
@@ -93,10 +97,10 @@ def read_bytes(path: Path) -> bytes:
         with path.open("rb") as handle:
             if stat.S_ISREG(path.stat().st_mode):
                 data = handle.read()
-                _check_head(path, data[:_HEAD_BYTES])
+                _check_head(path, data[:_HEAD_BYTES], encoding)
                 return data
             head = handle.read(_HEAD_BYTES)
-            _check_head(path, head)
+            _check_head(path, head, encoding)
             return head + handle.read()
     except OSError as error:
         raise _open_error(path, error) from None
@@ -114,10 +118,11 @@ def _utf8_error(data: bytes) -> int | None:
     view = memoryview(data)
     step = 1 << 20
     for start in range(0, len(data), step):
+        pending = len(decoder.getstate()[0])  # bytes of a character split by the step
         try:
             decoder.decode(view[start : start + step], final=start + step >= len(data))
         except UnicodeDecodeError as error:
-            return start + error.start - len(decoder.getstate()[0])
+            return start - pending + error.start
     return None
 
 
@@ -142,7 +147,7 @@ def _guess_encoding(path: Path, data: bytes) -> tuple[bytes, str | None]:
     """UTF-8 bytes of the text, and a note when the file was not UTF-8."""
     if data.startswith(codecs.BOM_UTF8):
         data = data[len(codecs.BOM_UTF8) :]
-    elif data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+    elif data.startswith(_UTF16_MARKS):
         return _with_encoding(path, data, "utf-16"), "read as UTF-16 text (it has a UTF-16 mark)"
     bad = _utf8_error(data)
     if bad is None:
@@ -326,8 +331,11 @@ def _read_parquet(path: Path, data: bytes) -> RawTable:
 def read_table_file(path: Path, encoding: str | None = None) -> RawTable:
     """Read a CSV/TSV/Parquet file once: the raw frame (text files as strings, so censored
     entries survive), the fingerprint of its bytes, its separator and the reader's notes."""
-    data = read_bytes(path)
-    if path.suffix.lower() in _PARQUET_SUFFIXES or data.startswith(b"PAR1"):
+    data = read_bytes(path, encoding)
+    # A Parquet file starts and ends with the magic bytes PAR1 (Apache Parquet format).
+    if path.suffix.lower() in _PARQUET_SUFFIXES or (
+        data.startswith(b"PAR1") and data.endswith(b"PAR1")
+    ):
         table = _read_parquet(path, data)
     else:
         table = _read_text(path, data, encoding)
