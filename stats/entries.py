@@ -352,6 +352,10 @@ class ParsedColumn:
     value: pl.Series
     censored: pl.Series
     reading: ColumnReading = field(compare=False)
+    #: Per entry: its kind (MISSING, NUMBER, CENSORED, NO_LIMIT, ABOVE, ESTIMATED, UNPARSED)
+    #: and the unit written in the cell (null when none).
+    kind: pl.Series | None = field(default=None, compare=False)
+    unit: pl.Series | None = field(default=None, compare=False)
 
 
 def _plain_counts(texts: pl.DataFrame) -> dict[str, tuple[int, int]]:
@@ -471,7 +475,13 @@ def _read_parsed(
         problem=problem,
     )
     censored = (entries["kind"] == CENSORED).alias(name)
-    return ParsedColumn(entries["value"].alias(name), censored, reading)
+    return ParsedColumn(
+        entries["value"].alias(name),
+        censored,
+        reading,
+        kind=entries["kind"].alias(name),
+        unit=entries["unit"].alias(name),
+    )
 
 
 def _plain(
@@ -484,11 +494,16 @@ def _plain(
         for number in [pl.col(name).cast(pl.Float64, strict=False)]
     )
     never = pl.repeat(False, texts.height, dtype=pl.Boolean, eager=True)
+    no_unit = pl.repeat(None, texts.height, dtype=pl.String, eager=True)
     return {
         name: ParsedColumn(
             values[name],
             never.alias(name),
             ColumnReading(name, entries=counts[name][0], numbers=counts[name][0]),
+            kind=values.select(
+                pl.when(pl.col(name).is_null()).then(MISSING).otherwise(NUMBER).cast(pl.UInt8)
+            ).to_series(),
+            unit=no_unit.alias(name),
         )
         for name in columns
     }

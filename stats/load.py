@@ -45,6 +45,7 @@ from .entries import (
     text_of,
 )
 from .errors import InputError
+from .long import LongOptions, find_long_columns, long_to_wide
 from .textfile import RawTable, read_table_file
 
 __all__ = [
@@ -477,6 +478,28 @@ def _notes(
     return tuple(notes)
 
 
+def _widened(
+    source: RawTable, options: LongOptions, label: str, reading: ReadOptions
+) -> tuple[RawTable, tuple[str, ...]]:
+    """The source as a wide table, and its outcome columns when it was long."""
+    try:
+        columns = find_long_columns(source.frame.columns, options)
+    except InputError as error:
+        raise InputError(f"{label}: {error}") from None
+    if columns is None:
+        return source, ()
+    wide = long_to_wide(
+        source.frame,
+        columns,
+        options,
+        label=label,
+        decimal=reading.decimal,
+        comma_hint=source.separator == ";",
+    )
+    notes = (*source.notes, *wide.notes)
+    return RawTable(wide.frame, source.fingerprint, None, notes), wide.outcomes
+
+
 def load_table(
     path: Path | str | None = None,
     *,
@@ -484,8 +507,12 @@ def load_table(
     groupings: Sequence[str] | None = None,
     outcomes: Sequence[str] | None = None,
     reading: ReadOptions | None = None,
+    long: LongOptions | None = None,
 ) -> Table:
     """Load a file (or an in-memory raw frame) and resolve column roles.
+
+    A long table (one row per sample × analyte; ``long`` names its columns, or they are
+    recognised by name) is first turned wide, one outcome per analyte (``stats/long.py``).
 
     Named ``groupings``/``outcomes`` override the guesses; a named column that does not
     exist, or that holds lists or structures, raises :class:`InputError`. ``reading`` sets
@@ -494,10 +521,12 @@ def load_table(
     reading = reading or ReadOptions()
     named_groups, named_outcomes = tuple(groupings or ()), tuple(outcomes or ())
     source, path_read = _read(path, frame, reading)
-    raw = source.frame
     label = str(path_read) if path_read is not None else "table"
-    if raw.height == 0:
+    if source.frame.height == 0:
         raise InputError(f"{label}: has a header but no data rows; nothing to compare")
+    source, long_outcomes = _widened(source, long or LongOptions(), label, reading)
+    named_outcomes = named_outcomes or long_outcomes
+    raw = source.frame
     _check_named(raw, label, "grouping", named_groups)
     _check_named(raw, label, "outcome", named_outcomes)
     parsed = read_columns(

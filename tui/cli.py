@@ -9,6 +9,7 @@ from pathlib import Path
 
 from foldsift.stats.equivalence import DEFAULT_BAND, parse_band
 from foldsift.stats.load import InputError, ReadOptions
+from foldsift.stats.long import DUPLICATE_POLICIES, LongOptions
 from foldsift.stats.policy import ValuePolicy
 from foldsift.stats.robust import DEFAULT_RESAMPLES
 from foldsift.stats.scan import DEFAULT_MAX_COMPARISONS, Reference, ScanResult, ScanSettings
@@ -115,7 +116,48 @@ def add_scan_options(parser: argparse.ArgumentParser, *, data_required: bool = T
         choices=("comma", "point"),
         help="the decimal mark of every column, where the entries leave it open (1,234)",
     )
+    _add_long_options(parser.add_argument_group("long tables (one row per sample × analyte)"))
     _add_method_options(parser.add_argument_group("method"))
+
+
+def _add_long_options(long: argparse._ArgumentGroup) -> None:
+    for option, what in (
+        ("--analyte", "what was measured (with --result: read the table as long)"),
+        ("--result", "the measured value"),
+        ("--unit", "the unit of each result"),
+        ("--qualifier", "laboratory qualifier or detection condition (<, U, J, R, ND, ...)"),
+        ("--limit", "the detection or reporting limit of each row"),
+        ("--sample", "the sample identifier: rows of one sample share its groupings"),
+    ):
+        long.add_argument(option, metavar="COL", help=f"column: {what}")
+    long.add_argument(
+        "--duplicates",
+        choices=DUPLICATE_POLICIES,
+        default="mean-log",
+        help="several results for one sample and analyte: geometric mean (default), the "
+        "first, or refuse",
+    )
+    long.add_argument(
+        "--wide",
+        action="store_true",
+        help="never read the table as long, even when its column names look like it",
+    )
+
+
+def _long_options(args: argparse.Namespace) -> LongOptions:
+    try:
+        return LongOptions(
+            analyte=args.analyte,
+            result=args.result,
+            unit=args.unit,
+            qualifier=args.qualifier,
+            limit=args.limit,
+            sample=args.sample,
+            duplicates=args.duplicates,
+            recognise=not args.wide,
+        )
+    except ValueError as error:
+        raise InputError(str(error)) from None
 
 
 def _add_method_options(method: argparse._ArgumentGroup) -> None:
@@ -213,6 +255,7 @@ def options_from(args: argparse.Namespace) -> SessionOptions:
         resamples=getattr(args, "resamples", DEFAULT_RESAMPLES),
         allow_formulas=bool(getattr(args, "allow_formulas", False)),
         reading=ReadOptions(encoding=args.encoding, decimal=args.decimal),
+        long=_long_options(args),
     )
 
 
@@ -265,6 +308,9 @@ def _describe(result: ScanResult) -> None:
             file=sys.stderr,
         )
         return
+    for note in source.notes:
+        if note.startswith("read as a long table"):
+            print(f"foldsift: {source.name}: {note}", file=sys.stderr)
     print(
         f"foldsift: {source.name}: {len(source.groupings)} grouping column(s) "
         f"({', '.join(source.groupings)}), {len(source.outcomes)} outcome(s), "
@@ -277,7 +323,8 @@ def _describe(result: ScanResult) -> None:
             file=sys.stderr,
         )
     for note in source.notes:
-        print(f"foldsift: note: {note}", file=sys.stderr)
+        if not note.startswith("read as a long table"):
+            print(f"foldsift: note: {note}", file=sys.stderr)
 
 
 def command_scan(args: argparse.Namespace) -> int:

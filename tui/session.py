@@ -22,6 +22,7 @@ from foldsift.stats.columns import (
     reviewed_row,
 )
 from foldsift.stats.load import InputError, ReadOptions, load_table
+from foldsift.stats.long import LongOptions
 from foldsift.stats.robust import (
     DEFAULT_RESAMPLES,
     DEFAULT_SEED,
@@ -63,6 +64,7 @@ class SessionOptions:
     seed: int = DEFAULT_SEED
     allow_formulas: bool = False  # write text cells like "=1+1" unguarded
     reading: ReadOptions = field(default_factory=ReadOptions)  # --encoding, --decimal
+    long: LongOptions = field(default_factory=LongOptions)  # --analyte, --result, ...
 
     @property
     def review_file(self) -> Path:
@@ -84,6 +86,7 @@ def scan(options: SessionOptions) -> ScanResult:
         groupings=options.groupings,
         outcomes=options.outcomes,
         reading=options.reading,
+        long=options.long,
     )
     return run_scan(table, options.settings)
 
