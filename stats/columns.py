@@ -31,6 +31,7 @@ class ComparisonRow(TypedDict):
     within: str | None  # the stratifying column (``--within``), or None
     stratum: str | None  # its level, or None
     outcome: str
+    unit: str | None  # the outcome's unit, from its name, its cells or a unit column
     level_a: str
     level_b: str
     n_a: int
@@ -68,6 +69,12 @@ class ComparisonRow(TypedDict):
     n_censored_b: int
     n_missing_a: int
     n_missing_b: int
+    n_no_limit_a: int  # below detection without a limit: left out
+    n_no_limit_b: int
+    n_above_range_a: int  # above the measuring range: used at the stated number
+    n_above_range_b: int
+    n_estimated_a: int  # qualifier J: used as given
+    n_estimated_b: int
     censored_share_a: float | None
     censored_share_b: float | None
     mean_log_difference: float | None
@@ -167,6 +174,7 @@ GROUPING = "grouping"
 WITHIN = "within"
 STRATUM = "stratum"
 OUTCOME = "outcome"
+UNIT = "unit"
 LEVEL_A = "level_a"
 LEVEL_B = "level_b"
 N_A = "n_a"

@@ -57,6 +57,18 @@ WARNINGS: dict[WarningName, str] = {
         "the ratio of sample medians and the ratio of geometric means disagree beyond their "
         "uncertainty: do not read the ratio as a ratio of medians"
     ),
+    "no-limit": (
+        "a group has below-detection entries with no limit (ND, <LOD with no limit column): "
+        "they were left out, so the group looks higher than it is"
+    ),
+    "above-range": (
+        "a group has entries above the measuring range (>x), used at the stated number: that "
+        "group's figures are understated"
+    ),
+    "units-apart": (
+        "this analyte was also reported in a unit that does not convert into this one; those "
+        "results are a separate outcome"
+    ),
 }
 
 #: Warnings that make "ratio of medians" doubtful: the finding then speaks of geometric means.
@@ -153,12 +165,19 @@ def warning_expression() -> pl.Expr:
         "log-not-normal": (shapiro_a < SHAPIRO_ALPHA) | (shapiro_b < SHAPIRO_ALPHA),
         "spread-differs": (sd_ratio > SPREAD_RATIO) & (pl.col("spread_p") < SPREAD_ALPHA),
         "median-vs-gm": pl.col("median_gm_z").abs() > MEDIAN_GM_Z,
+        "no-limit": _either_above_zero("n_no_limit"),
+        "above-range": _either_above_zero("n_above_range"),
+        "units-apart": pl.col("units_apart"),
     }
     parts = [
         pl.when(condition.fill_null(False)).then(pl.lit(name))
         for name, condition in conditions.items()
     ]
     return pl.concat_list(parts).list.drop_nulls().cast(pl.List(pl.Enum(list(WARNING_NAMES))))
+
+
+def _either_above_zero(name: str) -> pl.Expr:
+    return (pl.col(side(name, "a")) > 0) | (pl.col(side(name, "b")) > 0)
 
 
 def explain(warnings: list[WarningName]) -> list[tuple[WarningName, str]]:

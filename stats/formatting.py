@@ -5,6 +5,7 @@ number reads the same everywhere. A missing or undefined number reads "–"."""
 from __future__ import annotations
 
 import math
+import re
 
 MISSING = "–"
 
@@ -90,3 +91,24 @@ def number_text(value: float | None, digits: int = 3) -> str:
 def level_text(confidence: float) -> str:
     """A confidence level as a percentage: ``95%``."""
     return f"{100 * confidence:g}%"
+
+
+_NAME_UNIT = re.compile(r"_(mg|ug|ng|g|mmol|umol|nmol|us|ms|s|iu|u)_per_([a-z0-9]+)$")
+
+
+def unit_from_name(name: str) -> str | None:
+    """The unit a column name carries: ``copper_mg_per_kg`` -> ``mg/kg``; else None."""
+    match = _NAME_UNIT.search(name)
+    if not match:
+        return None
+    return f"{match.group(1)}/{match.group(2)}".replace("ug", "µg").replace("us/", "µS/")
+
+
+def readable_outcome(name: str) -> str:
+    """``copper_mg_per_kg`` -> ``copper (mg/kg)``; other names get underscores as spaces."""
+    unit = unit_from_name(name)
+    if unit is not None:
+        match = _NAME_UNIT.search(name)
+        assert match is not None
+        return f"{name[: match.start()].replace('_', ' ')} ({unit})"
+    return name.replace("_", " ")

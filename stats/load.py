@@ -36,7 +36,9 @@ from typing import Literal, get_args
 import polars as pl
 
 from .entries import (
+    MISSING,
     MISSING_WORDS,
+    NUMBER,
     ColumnReading,
     Decimal,
     ParsedColumn,
@@ -45,7 +47,8 @@ from .entries import (
     text_of,
 )
 from .errors import InputError
-from .long import LongOptions, find_long_columns, long_to_wide
+from .formatting import unit_from_name
+from .long import LongOptions, WideFromLong, find_long_columns, long_to_wide
 from .textfile import RawTable, read_table_file
 
 __all__ = [
@@ -122,6 +125,11 @@ class DerivedNames:
     def log(self, column: str) -> str:
         return self.derived(column, "log")
 
+    def kind(self, column: str) -> str:
+        """What each entry was (``entries`` kinds: a number, censored, no limit, above the
+        range, estimated, ...), for the per-group counts."""
+        return self.derived(column, "kind")
+
 
 @dataclass(frozen=True)
 class Table:
@@ -150,6 +158,11 @@ class Table:
     notes:
         One line for each thing the reader did that the user should know (renamed columns,
         the encoding, skipped lines, units, codes, rows without a level).
+    units:
+        Per outcome, its unit where one is known (from a long table's unit column, the
+        cells, or the column name such as ``copper_mg_per_kg``).
+    units_apart:
+        Outcomes of an analyte that was also reported in a unit that does not convert.
     """
 
     frame: pl.DataFrame
@@ -162,6 +175,8 @@ class Table:
     readings: dict[str, ColumnReading] = field(default_factory=dict)
     no_level: dict[str, int] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    units: dict[str, str] = field(default_factory=dict)
+    units_apart: tuple[str, ...] = ()
 
     @property
     def name(self) -> str:
@@ -415,15 +430,20 @@ def _typed(
         columns.append(pl.when(~missing_of(text)).then(text).alias(name))
     series: list[pl.Series] = []
     for name in outcomes:
-        if name in parsed:
-            series.append(parsed[name].value.alias(name))
-            series.append(parsed[name].censored.alias(names.censored(name)))
+        column = parsed.get(name)
+        if column is not None and column.kind is not None:
+            series.append(column.value.alias(name))
+            series.append(column.censored.alias(names.censored(name)))
+            series.append(column.kind.alias(names.kind(name)))
             continue
         value = pl.col(name).cast(pl.Float64)
-        columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
+        finite = pl.when(value.is_finite()).then(value).otherwise(None)
+        columns.append(finite.alias(name))
         columns.append(pl.lit(False).alias(names.censored(name)))
+        kind = pl.when(finite.is_null()).then(MISSING).otherwise(NUMBER).cast(pl.UInt8)
+        columns.append(kind.alias(names.kind(name)))
     typed = raw.select(columns).hstack(series)
-    order = [c for name in outcomes for c in (name, names.censored(name))]
+    order = [c for name in outcomes for c in (name, names.censored(name), names.kind(name))]
     return typed.select(*groupings, *order)
 
 
@@ -480,14 +500,14 @@ def _notes(
 
 def _widened(
     source: RawTable, options: LongOptions, label: str, reading: ReadOptions
-) -> tuple[RawTable, tuple[str, ...]]:
-    """The source as a wide table, and its outcome columns when it was long."""
+) -> tuple[RawTable, WideFromLong | None]:
+    """The source as a wide table, and what turning it wide found when it was long."""
     try:
         columns = find_long_columns(source.frame.columns, options)
     except InputError as error:
         raise InputError(f"{label}: {error}") from None
     if columns is None:
-        return source, ()
+        return source, None
     wide = long_to_wide(
         source.frame,
         columns,
@@ -497,7 +517,23 @@ def _widened(
         comma_hint=source.separator == ";",
     )
     notes = (*source.notes, *wide.notes)
-    return RawTable(wide.frame, source.fingerprint, None, notes), wide.outcomes
+    return RawTable(wide.frame, source.fingerprint, None, notes), wide
+
+
+def _units(
+    outcomes: Sequence[str], readings: dict[str, ColumnReading], widened: WideFromLong | None
+) -> dict[str, str]:
+    """Each outcome's unit: a long table's unit column, else its cells, else its name."""
+    units = {}
+    for name in outcomes:
+        unit = widened.units.get(name) if widened else None
+        reading = readings.get(name)
+        if unit is None and reading is not None and len(reading.units) == 1:
+            unit = reading.units[0]
+        unit = unit or unit_from_name(name)
+        if unit is not None:
+            units[name] = unit
+    return units
 
 
 def load_table(
@@ -519,13 +555,13 @@ def load_table(
     the encoding and the decimal mark where the file cannot be trusted to show them.
     """
     reading = reading or ReadOptions()
-    named_groups, named_outcomes = tuple(groupings or ()), tuple(outcomes or ())
+    named_groups = tuple(groupings or ())
     source, path_read = _read(path, frame, reading)
     label = str(path_read) if path_read is not None else "table"
     if source.frame.height == 0:
         raise InputError(f"{label}: has a header but no data rows; nothing to compare")
-    source, long_outcomes = _widened(source, long or LongOptions(), label, reading)
-    named_outcomes = named_outcomes or long_outcomes
+    source, widened = _widened(source, long or LongOptions(), label, reading)
+    named_outcomes = tuple(outcomes or ()) or _long_outcomes(widened)
     raw = source.frame
     _check_named(raw, label, "grouping", named_groups)
     _check_named(raw, label, "outcome", named_outcomes)
@@ -554,4 +590,14 @@ def load_table(
         readings=readings,
         no_level=no_level,
         notes=_notes(source.notes, readings.values(), no_level),
+        units=_units(chosen_outcomes, readings, widened),
+        units_apart=_long_units_apart(widened),
     )
+
+
+def _long_outcomes(widened: WideFromLong | None) -> tuple[str, ...]:
+    return widened.outcomes if widened is not None else ()
+
+
+def _long_units_apart(widened: WideFromLong | None) -> tuple[str, ...]:
+    return widened.units_apart if widened is not None else ()

@@ -330,7 +330,7 @@ def _outcome_names(rows: pl.DataFrame) -> tuple[pl.DataFrame, list[str]]:
                 outcome=pl.when(pl.col("target").is_not_null())
                 .then(pl.lit(str(analyte)) + " (" + pl.col("target") + ")")
                 .otherwise(pl.lit(str(analyte))),
-            ).drop("target", "factor")
+            ).drop("factor")
         )
     if not parts:
         raise InputError("the analyte column is empty; nothing to compare")
@@ -386,6 +386,8 @@ def _geometric_means(rows: pl.DataFrame, keys: list[str]) -> pl.DataFrame:
         .otherwise(kind.min())
         .cast(pl.UInt8),
         text=pl.col("text").first(),
+        analyte=pl.col("analyte").first(),
+        target=pl.col("target").first(),
     )
     return combined
 
@@ -422,6 +424,8 @@ class WideFromLong:
     outcomes: tuple[str, ...]
     others: tuple[str, ...]
     notes: tuple[str, ...]
+    units: dict[str, str]
+    units_apart: tuple[str, ...]
 
 
 def _counts_notes(rows: pl.DataFrame) -> list[str]:
@@ -467,6 +471,9 @@ def long_to_wide(
         rows = rows.with_columns(pl.int_range(pl.len()).over([*others, "outcome"]).alias("\x1frow"))
         index = [*others, "\x1frow"]
     outcomes = list(dict.fromkeys(rows["outcome"].to_list()))
+    per_outcome = rows.select("outcome", "analyte", "target").unique(maintain_order=True)
+    units = {o: t for o, _, t in per_outcome.rows() if t is not None}
+    split = per_outcome.filter(pl.col("analyte").is_duplicated())["outcome"].to_list()
     clash = set(outcomes) & set(index)
     if clash:
         raise InputError(
@@ -479,5 +486,10 @@ def long_to_wide(
     if columns.sample is not None:
         wide = wide.drop(columns.sample)
     return WideFromLong(
-        wide.select(*others, *outcomes), tuple(outcomes), tuple(others), tuple(notes)
+        wide.select(*others, *outcomes),
+        tuple(outcomes),
+        tuple(others),
+        tuple(notes),
+        units,
+        tuple(split),
     )

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping, Sequence
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -308,7 +309,9 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         how="left",
         nulls_equal=True,
     )
-    comparisons = compare_summaries(complete_summaries(summaries), settings, table.outcomes)
+    comparisons = compare_summaries(
+        complete_summaries(summaries), settings, table.outcomes, table.units, table.units_apart
+    )
     source = DataSource(
         path=table.path,
         fingerprint=table.fingerprint,
@@ -409,7 +412,11 @@ def _figures(frame: pl.DataFrame, test: LogTTest, settings: ScanSettings) -> dic
 
 
 def compare_summaries(
-    summaries: pl.DataFrame, settings: ScanSettings, outcomes: tuple[str, ...]
+    summaries: pl.DataFrame,
+    settings: ScanSettings,
+    outcomes: tuple[str, ...],
+    units: Mapping[str, str] | None = None,
+    units_apart: Sequence[str] = (),
 ) -> pl.DataFrame:
     """Every comparison from per-group summaries (one row per grouping × stratum × level ×
     outcome): the part of the scan that needs no raw values. Returns a frame with exactly
@@ -444,6 +451,10 @@ def compare_summaries(
         pl.col(pl.Float64).fill_nan(None),
         pl.Series("band_class", classes, dtype=pl.String).replace("", None),
         pl.lit(settings.test).alias("test"),
+        pl.col("outcome")
+        .replace_strict(dict(units or {}), default=None, return_dtype=pl.String)
+        .alias("unit"),
+        pl.col("outcome").is_in(list(units_apart)).alias("units_apart"),
         pl.lit(settings.confidence, pl.Float64).alias("confidence"),
     )
     frame = frame.with_columns(

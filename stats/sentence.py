@@ -2,25 +2,15 @@
 
 from __future__ import annotations
 
-import re
 from typing import cast
 
 import polars as pl
 
 from .columns import SENTENCE, ComparisonRow
 from .diagnostics import SYMMETRY_WARNINGS
-from .formatting import interval_text, level_text, p_text, ratio_text
+from .formatting import interval_text, level_text, p_text, ratio_text, readable_outcome
 
-_UNIT = re.compile(r"_(mg|ug|ng|g|mmol|umol|nmol|us|ms|s|iu|u)_per_([a-z0-9]+)$")
-
-
-def readable_outcome(name: str) -> str:
-    """``copper_mg_per_kg`` -> ``copper (mg/kg)``; other names get underscores as spaces."""
-    match = _UNIT.search(name)
-    if match:
-        unit = f"{match.group(1)}/{match.group(2)}".replace("ug", "µg").replace("us/", "µS/")
-        return f"{name[: match.start()].replace('_', ' ')} ({unit})"
-    return name.replace("_", " ")
+__all__ = ["finding", "group_name", "readable_outcome", "sentence_column", "stratum_phrase"]
 
 
 def group_name(grouping: str, level: str) -> str:

@@ -11,6 +11,7 @@ from collections.abc import Sequence
 
 import polars as pl
 
+from .entries import ABOVE, ESTIMATED, NO_LIMIT
 from .load import DerivedNames
 from .values import GroupSpec
 
@@ -29,6 +30,9 @@ SUMMARY_SCHEMA = pl.Schema(
         "n_excluded": pl.Int64,
         "n_substituted": pl.Int64,
         "n_censored": pl.Int64,
+        "n_no_limit": pl.Int64,
+        "n_above_range": pl.Int64,
+        "n_estimated": pl.Int64,
         "mean_log": pl.Float64,
         "ss_log": pl.Float64,
         "median": pl.Float64,
@@ -63,11 +67,24 @@ def _aggregations(outcome: str, names: DerivedNames) -> list[pl.Expr]:
         .cast(pl.Int64)
         .alias(stat(outcome, "n_substituted")),
         pl.col(names.censored(outcome)).sum().cast(pl.Int64).alias(stat(outcome, "n_censored")),
+        *_kind_counts(outcome, names),
         mean_log.alias(stat(outcome, "mean_log")),
         ss_log.alias(stat(outcome, "ss_log")),
         used.median().alias(stat(outcome, "median")),
         logs.skew(bias=True).alias(stat(outcome, "skew_log")),
         used.skew(bias=True).alias(stat(outcome, "skew_raw")),
+    ]
+
+
+def _kind_counts(outcome: str, names: DerivedNames) -> list[pl.Expr]:
+    kind = pl.col(names.kind(outcome))
+    return [
+        (kind == code).sum().cast(pl.Int64).alias(names.derived(outcome, stat))
+        for stat, code in (
+            ("n_no_limit", NO_LIMIT),
+            ("n_above_range", ABOVE),
+            ("n_estimated", ESTIMATED),
+        )
     ]
 
 

@@ -20,7 +20,15 @@ from .summaries import SUMMARY_SCHEMA
 
 REQUIRED = ("grouping", "level", "outcome", "n", "mean_log")
 SPREADS = ("sd_log", "var_log", "ss_log")
-OPTIONAL_COUNTS = ("n_missing", "n_excluded", "n_substituted", "n_censored")
+OPTIONAL_COUNTS = (
+    "n_missing",
+    "n_excluded",
+    "n_substituted",
+    "n_censored",
+    "n_no_limit",
+    "n_above_range",
+    "n_estimated",
+)
 
 
 def _spread_column(raw: pl.DataFrame, path: Path) -> str:

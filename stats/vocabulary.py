@@ -35,6 +35,9 @@ WarningName = Literal[
     "log-not-normal",
     "spread-differs",
     "median-vs-gm",
+    "no-limit",
+    "above-range",
+    "units-apart",
 ]
 
 PAIRS: tuple[Pairs, ...] = get_args(Pairs)
