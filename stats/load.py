@@ -48,7 +48,14 @@ from .entries import (
 )
 from .errors import InputError
 from .formatting import unit_from_name
-from .long import LongOptions, WideFromLong, find_long_columns, long_to_wide
+from .long import (
+    ROLE_NAMES,
+    LongOptions,
+    WideFromLong,
+    find_long_columns,
+    long_to_wide,
+    squash_name,
+)
 from .textfile import RawTable, read_table_file
 
 __all__ = [
@@ -231,6 +238,21 @@ def _is_text(dtype: pl.DataType) -> bool:
 
 _ARTICLE = {"grouping": "a", "outcome": "an"}
 _ID_NAME = re.compile(r"(^|[_ .-])(id|no|num|number|index|idx|sample|row)$", re.IGNORECASE)
+#: Names of columns that number the units measured (subjects, patients, animals): whole
+#: numbers repeated on several rows there identify, they neither measure nor group.
+_UNIT_NAME = re.compile(
+    r"(^|[_ .-])(id|subject|subj|patient|participant|animal|individual|person|case)"
+    r"([_ .-]?(id|no|num|number))?$",
+    re.IGNORECASE,
+)
+#: A date or a time stamp as written (2024-05-01, 01/05/2024, 2024-05-01T10:30, 1.5.2024).
+_DATE = re.compile(
+    r"^(\d{4}-\d{1,2}-\d{1,2}|\d{1,2}[/.-]\d{1,2}[/.-]\d{2,4})([ T]\d{1,2}:\d{2}(:\d{2})?.*)?$"
+)
+#: Whole numbers in this range, in a column named like a year or with many levels, are
+#: years: not measurements, and groupings only when named.
+_YEARS = (1800, 2200)
+_YEAR_NAME = re.compile(r"(^|[_ .-])(year|yr|jahr|annee|año|date|time)s?$", re.IGNORECASE)
 #: A whole number as written, maybe before a unit (``12``, ``10 mg``, ``20%``; not ``12.0``
 #: nor ``1e3``).
 _INTEGER = r"^[$€£¥]?\s*[+-]?[0-9]+(?:$|[^0-9.,eE])"
@@ -260,33 +282,67 @@ def _looks_like_identifier(name: str, numbers: pl.Series) -> bool:
 Role = Literal["grouping", "outcome"] | None
 
 
+def _whole_number_role(name: str, numbers: pl.Series) -> Role | Literal["measure"]:
+    """The role of whole numbers: an identifier, a year, a unit number or a few levels are
+    not measurements ("measure": they are)."""
+    distinct = numbers.n_unique()
+    if _looks_like_identifier(name, numbers):
+        return None  # a sample number, not a measurement nor a grouping
+    low, high = numbers.cast(pl.Float64).min(), numbers.cast(pl.Float64).max()
+    years = (
+        isinstance(low, float) and isinstance(high, float) and _YEARS[0] <= low <= high <= _YEARS[1]
+    )
+    if years and distinct >= 2 and (_YEAR_NAME.search(name) or distinct > MAX_INTEGER_GROUP_LEVELS):
+        return "grouping" if distinct <= MAX_INTEGER_GROUP_LEVELS else None
+    if _UNIT_NAME.search(name) and distinct < numbers.len():
+        return None  # subject 1..k on several rows each: who was measured
+    if 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
+        return "grouping"
+    return "measure"
+
+
+def _looks_like_dates(frame: pl.DataFrame, name: str) -> bool:
+    text = frame.select(text_of(name))[name].drop_nulls()
+    text = text.filter(text != "")
+    dated = int(text.str.contains(_DATE.pattern).sum())
+    return text.len() > 0 and dated >= 0.8 * text.len()
+
+
 def _text_role(frame: pl.DataFrame, name: str, parsed: ParsedColumn, distinct: int) -> Role:
-    """The role of a text column: numbers (mostly) or labels."""
+    """The role of a text column: numbers (mostly) or labels. Dates with many levels are
+    neither (name them with --group)."""
     reading = parsed.reading
     if reading.entries and reading.share >= NUMERIC_SHARE:
         # Detection limits and range codes mark measurements, never labels.
         coded = reading.censored + reading.censored_without_limit + reading.above_range
-        if not coded and _integer_like(frame, name, parsed.value):
-            numbers = parsed.value.drop_nulls()
-            if _looks_like_identifier(name, numbers):
-                return None  # a sample number, not a measurement nor a grouping
-            if 2 <= numbers.n_unique() <= MAX_INTEGER_GROUP_LEVELS:
-                return "grouping"
+        numbers = parsed.value.drop_nulls()
+        named_year = bool(_YEAR_NAME.search(name)) and bool((numbers % 1 == 0).all())
+        if not coded and (named_year or _integer_like(frame, name, parsed.value)):
+            role = _whole_number_role(name, numbers)
+            if role != "measure":
+                return role
         return "outcome"
+    if distinct > MAX_INTEGER_GROUP_LEVELS and _looks_like_dates(frame, name):
+        return None
     if 2 <= distinct <= MAX_GROUP_LEVELS and distinct < frame.height:
         return "grouping"
     return None
 
 
-def _typed_role(dtype: pl.DataType, distinct: int) -> Role:
-    """The role of a column that arrived typed (Parquet, an in-memory frame)."""
-    if dtype.is_integer() and 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
-        return "grouping"
-    if dtype.is_numeric():
-        return "outcome"
+def _typed_role(frame: pl.DataFrame, name: str, distinct: int) -> Role:
+    """The role of a column that arrived typed (Parquet, an in-memory frame). Dates and
+    times are not guessed (name them with --group)."""
+    dtype = frame.schema[name]
     if dtype == pl.Boolean:
         return "grouping"
-    return None
+    if not dtype.is_numeric():
+        return None
+    numbers = frame[name].drop_nulls()
+    whole = numbers.len() > 0 and bool((numbers.cast(pl.Float64) % 1 == 0).all())
+    if dtype.is_integer() or (whole and _YEAR_NAME.search(name)):
+        role = _whole_number_role(name, numbers)
+        return "outcome" if role == "measure" else role
+    return "outcome"
 
 
 def _level_counts(frame: pl.DataFrame, columns: Iterable[str]) -> dict[str, int]:
@@ -321,12 +377,12 @@ def infer_roles(
         parsed = read_columns(frame, [n for n, t in frame.schema.items() if _is_text(t)])
     levels = _level_counts(frame, _counted(frame, parsed))
     roles: dict[str, list[str]] = {"grouping": [], "outcome": []}
-    for name, dtype in frame.schema.items():
+    for name in frame.columns:
         distinct = levels.get(name, 0)
         if name in parsed:
             role = _text_role(frame, name, parsed[name], distinct)
         else:
-            role = _typed_role(dtype, distinct)
+            role = _typed_role(frame, name, distinct)
         if role is not None:
             roles[role].append(name)
     return roles["grouping"], roles["outcome"]
@@ -484,6 +540,20 @@ def _to_parse(raw: pl.DataFrame, groupings: Sequence[str], outcomes: Sequence[st
     return texts
 
 
+def _looks_long(groupings: Sequence[str]) -> list[str]:
+    """Notes for groupings named like a long table's analyte or unit column."""
+    notes = []
+    for name in groupings:
+        for role in ("analyte", "unit"):
+            if squash_name(name) in ROLE_NAMES[role]:
+                notes.append(
+                    f"{name}: compared as a grouping, but it looks like the {role} column of a "
+                    "long table (one row per sample × analyte); if it is, name the columns "
+                    "with --analyte and --result"
+                )
+    return notes
+
+
 def _notes(
     raw_notes: Sequence[str], readings: Iterable[ColumnReading], no_level: dict[str, int]
 ) -> tuple[str, ...]:
@@ -589,7 +659,8 @@ def load_table(
         names=names,
         readings=readings,
         no_level=no_level,
-        notes=_notes(source.notes, readings.values(), no_level),
+        notes=_notes(source.notes, readings.values(), no_level)
+        + tuple(_looks_long(chosen_groups) if widened is None else ()),
         units=_units(chosen_outcomes, readings, widened),
         units_apart=_long_units_apart(widened),
     )

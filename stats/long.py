@@ -103,7 +103,8 @@ QUALIFIERS: dict[str, tuple[str, ...]] = {
 REJECTED = 7
 
 
-def _squash(name: str) -> str:
+def squash_name(name: str) -> str:
+    """A column name without case, spaces or punctuation, as ``ROLE_NAMES`` holds it."""
     return re.sub(r"[^a-z0-9]", "", name.lower())
 
 
@@ -159,7 +160,7 @@ class LongOptions:
 def _by_name(columns: Sequence[str], role: str, taken: set[str]) -> str | None:
     wanted = ROLE_NAMES[role]
     for name in columns:
-        if name not in taken and _squash(name) in wanted:
+        if name not in taken and squash_name(name) in wanted:
             return name
     return None
 
