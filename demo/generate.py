@@ -33,12 +33,37 @@ Data quirks written into the CSV
 * Values above the detection limit are rounded to ``SIG_DIGITS`` significant digits.
 * A few exact zeros (``ZERO_COUNTS``) and about ``BLANK_FRACTION`` empty cells.
 
-Run ``python -m foldsift.demo.generate`` to rewrite ``marrowby_soils.csv`` beside this file.
+The same survey as a laboratory export
+--------------------------------------
+``generate_lab`` writes the same cores as the laboratories reported them: one row per core x
+analyte (``sample_id``, ``field``, ``season``, ``analyte``, ``result``, ``unit``,
+``qualifier``, ``detection_limit``), derived from ``generate`` entry by entry, so both files
+hold the same measurements:
+
+* Analytes are named as in the wide column without its unit (``phosphorus olsen``); the unit
+  is in its own column (``mg/kg``, ``µg/kg``, ``g/kg``, ``µS/cm``), and every row of an
+  analyte with a detection limit carries that limit in ``detection_limit``.
+* Cadmium of the autumn cores of ``LAB_B_FIELDS`` was sent to a second laboratory, which
+  reports in mg/kg (the first one in µg/kg): its results and limits are the wide µg/kg
+  entries shifted three decimal places (``243`` -> ``0.243``, limit ``0.12``).
+* Entries below the detection limit are written in three ways, in turn (``CENSORED_FORMS``):
+  qualifier ``U`` with the limit as the result, ``<limit`` as the result, and ``ND`` as the
+  result with the limit in ``detection_limit``; the second laboratory always writes
+  ``<limit``.
+* Laboratory duplicates (``DUPLICATE_EVERY``): two results ``1.25 x`` and ``0.8 x`` for the
+  wide entry ``x``, whose geometric mean is ``x``.
+* Rejected runs (``REJECTED_SAMPLES``): a result with qualifier ``R`` (``REJECTED_FACTOR``
+  times the accepted result) before the accepted re-run.
+* The wide file's empty cells are, in turn, a row left out and a row with an empty result.
+
+Run ``python -m foldsift.demo.generate`` to rewrite ``marrowby_soils.csv`` and
+``marrowby_soils_lab.csv`` beside this file.
 """
 
 from __future__ import annotations
 
 import math
+from decimal import Decimal
 from pathlib import Path
 from typing import Any
 
@@ -144,11 +169,73 @@ SIG_DIGITS = 3
 """Significant digits for values written above the detection limit."""
 
 DEMO_CSV = Path(__file__).with_name("marrowby_soils.csv")
+LAB_CSV = Path(__file__).with_name("marrowby_soils_lab.csv")
+
+NAME_UNITS: dict[str, str] = {
+    # unit part of a wide column name: unit as the laboratory export writes it.
+    "_ug_per_kg": "µg/kg",
+    "_mg_per_kg": "mg/kg",
+    "_g_per_kg": "g/kg",
+    "_us_per_cm": "µS/cm",
+}
+
+LAB_B_ANALYTE = "cadmium_ug_per_kg"
+"""The analyte that the second laboratory reported for some cores, in ``LAB_B_UNIT``."""
+LAB_B_UNIT = "mg/kg"
+LAB_B_SHIFT = -3
+"""Powers of ten from the wide unit (µg/kg) to the second laboratory's unit (mg/kg)."""
+LAB_B_FIELDS: tuple[str, ...] = ("brook_end", "long_acre", "north_meadow")
+"""Fields whose autumn cores had cadmium measured by the second laboratory."""
+
+CENSORED_FORMS: tuple[str, ...] = ("U", "<", "ND")
+"""How the first laboratory writes below-detection entries, in turn (see the module doc)."""
+
+DUPLICATE_ANALYTE = "potassium_mg_per_kg"
+DUPLICATE_EVERY = 40
+"""Every 40th core has a laboratory duplicate of ``DUPLICATE_ANALYTE``."""
+DUPLICATE_FACTORS: tuple[str, str] = ("1.25", "0.8")
+"""The duplicate pair's multipliers of the wide entry; their product is 1."""
+
+REJECTED_ANALYTE = "mercury_mg_per_kg"
+REJECTED_SAMPLES: tuple[int, ...] = (13, 113, 213)
+"""Cores (1-based rows) with a rejected first run of ``REJECTED_ANALYTE``."""
+REJECTED_FACTOR = "5"
+
+Row = tuple[str | None, str, str | None, str | None]
+"""One reported result: (result, unit, qualifier, detection limit)."""
+
+LAB_COLUMNS: tuple[str, ...] = (
+    "sample_id",
+    "field",
+    "season",
+    "analyte",
+    "result",
+    "unit",
+    "qualifier",
+    "detection_limit",
+)
 
 
 def demo_path() -> Path:
     """Return the path of the committed demo CSV."""
     return DEMO_CSV
+
+
+def lab_path() -> Path:
+    """Return the path of the committed demo laboratory export (long table)."""
+    return LAB_CSV
+
+
+def analyte_and_unit(column: str) -> tuple[str, str]:
+    """The analyte name and unit of a wide column as the laboratory export writes them.
+
+    >>> analyte_and_unit("phosphorus_olsen_mg_per_kg"), analyte_and_unit("cadmium_ug_per_kg")
+    (('phosphorus olsen', 'mg/kg'), ('cadmium', 'µg/kg'))
+    """
+    for suffix, unit in NAME_UNITS.items():
+        if column.endswith(suffix):
+            return column[: -len(suffix)].replace("_", " "), unit
+    raise ValueError(f"no unit in the column name {column!r}")
 
 
 def planted_ratio(analyte: str, grouping: str, level_a: str, level_b: str) -> float:
@@ -278,6 +365,90 @@ def generate(seed: int = SEED) -> pl.DataFrame:
     )
 
 
+def _shifted(text: str, places: int) -> str:
+    """A decimal written ``text`` times ten to ``places``, exactly (``243`` -> ``0.243``)."""
+    return f"{Decimal(text).scaleb(places):f}"
+
+
+def _times(text: str, factor: str) -> str:
+    """A decimal written ``text`` times ``factor``, exactly and without trailing zeros."""
+    return f"{(Decimal(text) * Decimal(factor)).normalize():f}"
+
+
+def _censored_row(limit: str, form: str) -> tuple[str, str]:
+    """(result, qualifier) of an entry below ``limit`` in one of ``CENSORED_FORMS``."""
+    if form == "U":
+        return limit, "U"
+    if form == "<":
+        return f"<{limit}", ""
+    return "ND", ""
+
+
+def _lab_rows(
+    column: str, entry: str | None, lab_b: bool, form: str, blank_kept: bool
+) -> list[Row]:
+    """(result, unit, qualifier, detection limit) rows of one wide entry; none for an empty
+    entry that is left out."""
+    _, unit = analyte_and_unit(column)
+    limit = DETECTION_LIMITS.get(column)
+    limit_text = None if limit is None else f"{limit:g}"
+    if lab_b:
+        unit = LAB_B_UNIT
+        limit_text = None if limit_text is None else _times(limit_text, f"1e{LAB_B_SHIFT}")
+    if entry is None:
+        return [(None, unit, None, limit_text)] if blank_kept else []
+    if entry.startswith("<"):
+        assert limit_text is not None
+        result, qualifier = _censored_row(limit_text, "<" if lab_b else form)
+        return [(result, unit, qualifier or None, limit_text)]
+    value = _shifted(entry, LAB_B_SHIFT) if lab_b else entry
+    return [(value, unit, None, limit_text)]
+
+
+def _with_reruns(column: str, entry: str, core_number: int, reported: list[Row]) -> list[Row]:
+    """The rows of a measured entry with a laboratory duplicate pair in place of the one
+    result, or a rejected run before it, where the demo has them."""
+    _, unit, _, limit_text = reported[0]
+    if column == DUPLICATE_ANALYTE and core_number % DUPLICATE_EVERY == 0:
+        return [(_times(entry, factor), unit, None, limit_text) for factor in DUPLICATE_FACTORS]
+    if column == REJECTED_ANALYTE and core_number in REJECTED_SAMPLES:
+        return [(_times(entry, REJECTED_FACTOR), unit, "R", limit_text), *reported]
+    return reported
+
+
+def generate_lab(seed: int = SEED) -> pl.DataFrame:
+    """The survey of ``generate(seed)`` as a laboratory export: one row per core x analyte
+    (``LAB_COLUMNS``, all strings; see the module doc for what is written how)."""
+    rows: list[tuple[str | None, ...]] = []
+    censored_seen = 0
+    blanks_seen = 0
+    for number, core in enumerate(generate(seed).iter_rows(named=True), start=1):
+        lab_b = core["season"] == "autumn" and core["field"] in LAB_B_FIELDS
+        ident = (core["sample_id"], core["field"], core["season"])
+        for column in ANALYTES:
+            entry = core[column]
+            censored = entry is not None and entry.startswith("<")
+            form = CENSORED_FORMS[censored_seen % len(CENSORED_FORMS)]
+            censored_seen += censored
+            blanks_seen += entry is None
+            reported = _lab_rows(
+                column, entry, lab_b and column == LAB_B_ANALYTE, form, blanks_seen % 2 == 0
+            )
+            if entry is not None and not censored:
+                reported = _with_reruns(column, entry, number, reported)
+            analyte, _ = analyte_and_unit(column)
+            rows.extend((*ident, analyte, *row) for row in reported)
+    return pl.DataFrame(rows, schema=dict.fromkeys(LAB_COLUMNS, pl.String), orient="row")
+
+
+def write_lab(path: str | Path | None = None) -> Path:
+    """Generate the demo laboratory export with ``SEED`` and write it as CSV; return the path
+    written (default ``LAB_CSV``, ``marrowby_soils_lab.csv`` beside this module)."""
+    target = LAB_CSV if path is None else Path(path)
+    generate_lab().write_csv(target)
+    return target
+
+
 def write_demo(path: str | Path | None = None) -> Path:
     """Generate the demo data with ``SEED`` and write it as CSV; return the path written.
 
@@ -290,3 +461,4 @@ def write_demo(path: str | Path | None = None) -> Path:
 
 if __name__ == "__main__":
     print(f"wrote {write_demo()}")
+    print(f"wrote {write_lab()}")

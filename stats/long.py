@@ -218,6 +218,9 @@ def _rows(
     censored), plus the qualifier's meaning and text for the counts."""
     to_read = [columns.result] + ([columns.limit] if columns.limit else [])
     parsed = read_columns(raw, to_read, decimal=decimal, comma_hint=comma_hint)
+    for column in parsed.values():
+        if column.reading.problem is not None:
+            raise InputError(column.reading.problem)
     result = parsed[columns.result]
     assert result.kind is not None and result.unit is not None
     frame = pl.DataFrame(
@@ -441,6 +444,74 @@ def _counts_notes(rows: pl.DataFrame) -> list[str]:
     return notes
 
 
+def _sample_columns(
+    raw: pl.DataFrame, sample: str, others: list[str]
+) -> tuple[pl.DataFrame, list[str], list[str]]:
+    """The columns that describe the sample: constant within it. A column that differs
+    within most samples holding several results (the laboratory of each result) describes
+    results, not samples, and is left out; one that differs within a few samples (a typing
+    slip) takes the sample's first value. Both are said."""
+    if not others:
+        return raw, others, []
+    counts = raw.group_by(sample).agg(
+        pl.len().alias("\x1fn"), *[pl.col(c).n_unique() for c in others]
+    )
+    several = counts.filter(pl.col("\x1fn") > 1)
+    notes, kept, firsts = [], [], []
+    for name in others:
+        varying = several.filter(pl.col(name) > 1).height
+        if varying == 0:
+            kept.append(name)
+        elif varying > several.height / 2:
+            notes.append(
+                f"{name}: differs between the results of {varying} sample(s); it describes results, not samples, and is not a grouping"
+            )
+        else:
+            kept.append(name)
+            firsts.append(name)
+            notes.append(
+                f"{name}: differs within {varying} sample(s); each sample takes its first value"
+            )
+    if firsts:
+        raw = raw.with_columns(pl.col(firsts).first().over(sample))
+    return raw, kept, notes
+
+
+def _drop_valueless(rows: pl.DataFrame) -> tuple[pl.DataFrame, list[str]]:
+    """Outcomes with no usable value at all (every result ND without a limit, say) are left
+    out with a note rather than refusing the table."""
+    usable = pl.col("kind").is_in([NUMBER, CENSORED, ESTIMATED, ABOVE]) & (pl.col("value") > 0)
+    per_outcome = rows.group_by("outcome", maintain_order=True).agg(
+        usable.any().alias("usable"), pl.len().alias("results")
+    )
+    empty = per_outcome.filter(~pl.col("usable"))
+    notes = [
+        f"{outcome}: none of its {count} result(s) is a positive number or a limit "
+        "(all below detection without a limit, missing or unreadable); left out"
+        for outcome, _, count in empty.rows()
+    ]
+    return rows.filter(~pl.col("outcome").is_in(empty["outcome"].to_list())), notes
+
+
+def _outcome_units(rows: pl.DataFrame) -> tuple[list[str], dict[str, str], list[str]]:
+    """The outcomes in order, each one's unit, and those whose analyte has another outcome
+    in a unit that does not convert (units kept apart)."""
+    outcomes = list(dict.fromkeys(rows["outcome"].to_list()))
+    per_outcome = rows.select("outcome", "analyte", "target").unique(maintain_order=True)
+    units = {o: t for o, _, t in per_outcome.rows() if t is not None}
+    split = per_outcome.filter(pl.col("analyte").is_duplicated())["outcome"].to_list()
+    return outcomes, units, split
+
+
+def _named_rows(rows: pl.DataFrame, notes: list[str]) -> pl.DataFrame:
+    """The rows that name an analyte; the others are counted in ``notes``."""
+    named = pl.col("analyte").is_not_null() & (pl.col("analyte") != "")
+    nameless = rows.filter(~named).height
+    if nameless:
+        notes.append(f"{nameless} result(s) with no analyte named left out")
+    return rows.filter(named)
+
+
 def long_to_wide(
     raw: pl.DataFrame,
     columns: LongColumns,
@@ -453,16 +524,23 @@ def long_to_wide(
     """One row per sample (or per result without a sample column), one text column per
     outcome, the sample's other columns kept for groupings."""
     others = [c for c in raw.columns if c not in columns.used()]
-    rows = _rows(raw, columns, decimal, comma_hint).with_columns(
+    notes = [f"read as a long table: {columns.describe()}; each analyte is an outcome"]
+    if columns.sample is not None:
+        raw, others, sample_notes = _sample_columns(raw, columns.sample, others)
+        notes += sample_notes
+    try:
+        parsed_rows = _rows(raw, columns, decimal, comma_hint)
+    except InputError as error:
+        raise InputError(f"{label}: {error}") from None
+    rows = parsed_rows.with_columns(
         text=raw[columns.result].cast(pl.String),
         **{
             name: raw[name].cast(pl.String)
             for name in [*others, *([columns.sample] if columns.sample else [])]
         },
     )
-    notes = [f"read as a long table: {columns.describe()}; each analyte is an outcome"]
     notes += _counts_notes(rows)
-    rows, unit_notes = _outcome_names(rows.filter(pl.col("kind") != REJECTED))
+    rows, unit_notes = _outcome_names(_named_rows(rows, notes).filter(pl.col("kind") != REJECTED))
     notes += unit_notes
     if columns.sample is not None:
         index = [columns.sample, *others]
@@ -471,10 +549,9 @@ def long_to_wide(
     else:
         rows = rows.with_columns(pl.int_range(pl.len()).over([*others, "outcome"]).alias("\x1frow"))
         index = [*others, "\x1frow"]
-    outcomes = list(dict.fromkeys(rows["outcome"].to_list()))
-    per_outcome = rows.select("outcome", "analyte", "target").unique(maintain_order=True)
-    units = {o: t for o, _, t in per_outcome.rows() if t is not None}
-    split = per_outcome.filter(pl.col("analyte").is_duplicated())["outcome"].to_list()
+    rows, empty_notes = _drop_valueless(rows)
+    notes += empty_notes
+    outcomes, units, split = _outcome_units(rows)
     clash = set(outcomes) & set(index)
     if clash:
         raise InputError(
