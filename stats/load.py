@@ -134,7 +134,8 @@ class DerivedNames:
 
     def kind(self, column: str) -> str:
         """What each entry was (``entries`` kinds: a number, censored, no limit, above the
-        range, estimated, ...), for the per-group counts."""
+        range, estimated, ...), for the per-group counts; only outcomes that hold an entry
+        of a counted kind have this column."""
         return self.derived(column, "kind")
 
 
@@ -235,6 +236,10 @@ def _unusable(dtype: pl.DataType) -> str | None:
 def _is_text(dtype: pl.DataType) -> bool:
     return dtype == pl.Utf8 or isinstance(dtype, pl.Categorical | pl.Enum)
 
+
+#: Entry kinds of plain columns: only outcomes holding another kind (a code, a limit, a
+#: qualifier) carry a kind column for the per-group counts.
+PLAIN_KINDS = [NUMBER, MISSING]
 
 _ARTICLE = {"grouping": "a", "outcome": "an"}
 _ID_NAME = re.compile(r"(^|[_ .-])(id|no|num|number|index|idx|sample|row)$", re.IGNORECASE)
@@ -487,19 +492,23 @@ def _typed(
     series: list[pl.Series] = []
     for name in outcomes:
         column = parsed.get(name)
-        if column is not None and column.kind is not None:
+        if column is not None:
             series.append(column.value.alias(name))
             series.append(column.censored.alias(names.censored(name)))
-            series.append(column.kind.alias(names.kind(name)))
+            if column.kind is not None and bool((~column.kind.is_in(PLAIN_KINDS)).any()):
+                series.append(column.kind.alias(names.kind(name)))
             continue
         value = pl.col(name).cast(pl.Float64)
-        finite = pl.when(value.is_finite()).then(value).otherwise(None)
-        columns.append(finite.alias(name))
+        columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
         columns.append(pl.lit(False).alias(names.censored(name)))
-        kind = pl.when(finite.is_null()).then(MISSING).otherwise(NUMBER).cast(pl.UInt8)
-        columns.append(kind.alias(names.kind(name)))
     typed = raw.select(columns).hstack(series)
-    order = [c for name in outcomes for c in (name, names.censored(name), names.kind(name))]
+    typed_columns = set(typed.columns)
+    order = [
+        c
+        for name in outcomes
+        for c in (name, names.censored(name), names.kind(name))
+        if c in typed_columns
+    ]
     return typed.select(*groupings, *order)
 
 

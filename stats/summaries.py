@@ -53,7 +53,7 @@ def mean_and_sum_of_squares(values: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
     return mean, (values - mean).pow(2).sum()
 
 
-def _aggregations(outcome: str, names: DerivedNames) -> list[pl.Expr]:
+def _aggregations(outcome: str, names: DerivedNames, coded: bool) -> list[pl.Expr]:
     used = pl.col(names.used(outcome))
     logs = pl.col(names.log(outcome))
     mean_log, ss_log = mean_and_sum_of_squares(logs)
@@ -67,13 +67,16 @@ def _aggregations(outcome: str, names: DerivedNames) -> list[pl.Expr]:
         .cast(pl.Int64)
         .alias(stat(outcome, "n_substituted")),
         pl.col(names.censored(outcome)).sum().cast(pl.Int64).alias(stat(outcome, "n_censored")),
-        *_kind_counts(outcome, names),
+        *(_kind_counts(outcome, names) if coded else []),
         mean_log.alias(stat(outcome, "mean_log")),
         ss_log.alias(stat(outcome, "ss_log")),
         used.median().alias(stat(outcome, "median")),
         logs.skew(bias=True).alias(stat(outcome, "skew_log")),
         used.skew(bias=True).alias(stat(outcome, "skew_raw")),
     ]
+
+
+_KIND_STATS = ("n_no_limit", "n_above_range", "n_estimated")
 
 
 def _kind_counts(outcome: str, names: DerivedNames) -> list[pl.Expr]:
@@ -86,6 +89,14 @@ def _kind_counts(outcome: str, names: DerivedNames) -> list[pl.Expr]:
             ("n_estimated", ESTIMATED),
         )
     ]
+
+
+def _stat(outcome: str, stat: str, names: DerivedNames, coded: bool) -> pl.Expr:
+    """One figure of one outcome from the aggregated frame (counts of kinds an outcome
+    cannot hold are 0)."""
+    if stat in _KIND_STATS and not coded:
+        return pl.lit(0, pl.Int64).alias(stat)
+    return pl.col(names.derived(outcome, stat)).alias(stat)
 
 
 def _identity(spec: GroupSpec) -> list[pl.Expr]:
@@ -106,7 +117,10 @@ def group_summaries(
 ) -> pl.DataFrame:
     """One row per grouping × stratum × level × outcome (rows whose group or stratum is
     missing are left out)."""
-    aggregations = [expr for outcome in outcomes for expr in _aggregations(outcome, names)]
+    coded = {o for o in outcomes if names.kind(o) in frame.columns}
+    aggregations = [
+        expr for outcome in outcomes for expr in _aggregations(outcome, names, outcome in coded)
+    ]
     plans = [
         frame.lazy()
         .with_columns([pl.col(names.used(o)).log().alias(names.log(o)) for o in outcomes])
@@ -123,7 +137,7 @@ def group_summaries(
                 wide.select(
                     *identity,
                     pl.lit(outcome, pl.Utf8).alias("outcome"),
-                    *[pl.col(names.derived(outcome, stat)).alias(stat) for stat in _STATS],
+                    *[_stat(outcome, stat, names, outcome in coded) for stat in _STATS],
                 )
             )
     if not parts:

@@ -66,11 +66,11 @@ def entry(table: Table, outcome: str, site: str) -> tuple[float | None, bool, in
     row = table.frame.filter(pl.col("site") == site)
     assert row.height == 1, row
     names = table.names
-    return (
-        row[outcome].item(),
-        row[names.censored(outcome)].item(),
-        row[names.kind(outcome)].item(),
-    )
+    # plain columns (numbers and missing entries only) carry no kind column
+    value = row[outcome].item()
+    plain = NUMBER if value is not None else MISSING
+    kind = row[names.kind(outcome)].item() if names.kind(outcome) in row.columns else plain
+    return (value, row[names.censored(outcome)].item(), kind)
 
 
 def notes_matching(table: Table, pattern: str) -> list[str]:
