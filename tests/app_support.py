@@ -7,8 +7,10 @@ import time
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 from pathlib import Path
+from typing import Any
 
 import polars as pl
+from textual.css.query import NoMatches
 from textual.pilot import Pilot
 from textual.widget import Widget
 from textual.widgets import Input
@@ -21,8 +23,11 @@ from foldsift.tui.screens.dialogs import ExportScreen
 from foldsift.tui.screens.review import ReviewScreen
 from foldsift.tui.session import ReviewSession, SessionOptions
 from foldsift.tui.widgets.comparison_list import ComparisonList
+from foldsift.tui.widgets.plain import visible
 
 SIZE = (120, 36)
+#: Seconds a test waits for the scan (generous: a busy machine runs several test files).
+SCAN_TIMEOUT = 60.0
 
 
 async def until(pilot: Pilot, condition: Callable[[], bool], what: str, timeout=10.0) -> None:
@@ -34,9 +39,10 @@ async def until(pilot: Pilot, condition: Callable[[], bool], what: str, timeout=
         await pilot.pause(0.02)
 
 
-def make_app(tmp_path: Path, data: Path | None = None) -> FoldsiftApp:
-    """The app on `data` (default: the demo) with its review file and exports in tmp_path."""
-    options = SessionOptions(data or demo_path(), reviews_path=tmp_path / "r.sqlite")
+def make_app(tmp_path: Path, data: Path | None = None, **fields: Any) -> FoldsiftApp:
+    """The app on `data` (default: the demo) with its review file and exports in tmp_path;
+    `fields` are further SessionOptions (groupings, outcomes, ...)."""
+    options = SessionOptions(data or demo_path(), reviews_path=tmp_path / "r.sqlite", **fields)
     return FoldsiftApp(options, export_dir=tmp_path)
 
 
@@ -50,22 +56,27 @@ async def running(
     tmp_path: Path,
     data: Path | None = None,
     size: tuple[int, int] = SIZE,
+    **fields: Any,
 ) -> AsyncIterator[tuple[FoldsiftApp, Pilot]]:
-    """The app on `data` (default: the demo) with the scan finished and the list shown."""
-    app = make_app(tmp_path, data)
+    """The app on `data` (default: the demo) with the scan finished and the list shown (or
+    the reason the data cannot be opened)."""
+    app = make_app(tmp_path, data, **fields)
     async with app.run_test(size=size) as pilot:
-        await app.workers.wait_for_complete()
+        opened = lambda: app.error_text is not None or ready(app)  # noqa: E731
+        await until(pilot, opened, "the list and the first sentence", timeout=SCAN_TIMEOUT)
         await pilot.pause()
-        if app.error_text is None:
-            await until(pilot, lambda: ready(app), "the list and the first sentence")
         yield app, pilot
 
 
 def ready(app: FoldsiftApp) -> bool:
     """The review screen shows its list and the detail of the first row."""
-    if not is_open(app) or not listing(app).frame.height:
+    try:
+        if not is_open(app) or not listing(app).frame.height:
+            return False
+    except NoMatches:  # the review screen is there but not composed yet
         return False
-    return finding(current(app)) in sentence(app)
+    # Names from the data show their control characters as symbols.
+    return visible(finding(current(app))) in sentence(app)
 
 
 def review(app: FoldsiftApp) -> ReviewScreen:

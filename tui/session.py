@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import tempfile
 from collections.abc import Callable, Sequence
+from contextlib import suppress
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal, get_args
@@ -39,7 +40,7 @@ from foldsift.stats.vocabulary import Decision
 
 from .export import join_reviews, write_export
 from .filtering import FilterError, parse_filter
-from .store import Review, ReviewConflict, ReviewStore, default_review_path
+from .store import Review, ReviewConflict, ReviewStore, ReviewStoreError, default_review_path
 
 #: Which rows an export writes: flagged ones, ones with a decision, the ones the filter
 #: shows, or all of them.
@@ -278,8 +279,43 @@ class ReviewSession:
         self._change(key, lambda: self.store.set_decision(key, decision))
 
     def set_note(self, key: str, text: str) -> None:
-        """Replace the note (empty removes it). Saved before it returns."""
+        """Replace the note (empty removes it). Saved before it returns; the draft of the
+        note is then forgotten."""
         self._change(key, lambda: self.store.set_note(key, text))
+        # The note is saved; a draft left behind (the file busy a moment) equals it and is
+        # dropped when the editor next opens on it.
+        with suppress(ReviewStoreError):
+            self.store.clear_draft(key)
+
+    # -- drafts of notes (the text of a note being typed; see ReviewStore) ------------------
+    def draft(self, key: str) -> str | None:
+        return self.store.draft(key)
+
+    def keep_draft(self, key: str, text: str) -> None:
+        self.store.save_draft(key, text)
+
+    def drop_draft(self, key: str) -> None:
+        self.store.clear_draft(key)
+
+    def pending_drafts(self) -> dict[str, str]:
+        """Drafts of this data's comparisons that differ from their saved notes."""
+        drafts = self.store.drafts()
+        if not drafts:
+            return {}
+        notes = dict(self._rows.select(col.KEY, col.NOTE).iter_rows())
+        return {key: text for key, text in drafts.items() if key in notes and notes[key] != text}
+
+    def reload(self, key: str) -> bool:
+        """Read the review of ``key`` as stored now (another session may have changed it),
+        counting it as seen; True when it differs from what the rows held."""
+        names = list(_review_values(None))
+
+        def held() -> list[tuple[Any, ...]]:
+            return self._rows.filter(pl.col(col.KEY) == key).select(names).rows()
+
+        before = held()
+        self._refresh(key)
+        return held() != before
 
     def _change(self, key: str, change: Callable[[], object]) -> object:
         try:

@@ -9,6 +9,12 @@ Every row also carries a version, taken from one counter per file that only ever
 a review that is deleted and written again never repeats a version. A store remembers the
 version it last read or wrote of each key; a change to a key that another session changed
 since then is refused with ``ReviewConflict`` instead of overwriting that session's work.
+
+Beside the reviews, a ``drafts`` table keeps the text of a note while it is being typed
+(one row per key, no versions): what a reviewer typed survives a dropped connection before
+the note is saved. Drafts are not reviews: exports and the review columns never read them.
+Writable openings create the table when it is missing (files written before drafts existed
+need no migration); read-only openings never do.
 """
 
 from __future__ import annotations
@@ -61,6 +67,19 @@ CREATE TABLE IF NOT EXISTS reviews (
     updated_at TEXT NOT NULL,
     version INTEGER NOT NULL
 )
+"""
+
+_CREATE_DRAFTS = """
+CREATE TABLE IF NOT EXISTS drafts (
+    key TEXT PRIMARY KEY,
+    text TEXT NOT NULL,
+    updated_at TEXT NOT NULL
+)
+"""
+
+_SAVE_DRAFT = """
+INSERT INTO drafts (key, text, updated_at) VALUES (?, ?, ?)
+ON CONFLICT(key) DO UPDATE SET text = excluded.text, updated_at = excluded.updated_at
 """
 
 _CREATE_META = """
@@ -176,6 +195,7 @@ class ReviewStore:
         self._conn: sqlite3.Connection | None = opened.conn
         self._created = opened.created
         self._has_table = opened.has_table
+        self._has_drafts = opened.has_drafts
         version = "version" if opened.versioned else "0"
         self._select = f"SELECT {', '.join(_V1_COLUMNS)}, {version} FROM reviews"
 
@@ -318,6 +338,38 @@ class ReviewStore:
             },
             schema={"key": pl.String(), **REVIEW_SCHEMA},
         )
+
+    # -- drafts of notes -----------------------------------------------------------------
+
+    def save_draft(self, key: str, text: str) -> None:
+        """Keep ``text`` as the draft of the note of ``key`` (replacing an earlier draft)."""
+        _check_key(key)
+        if not isinstance(text, str):
+            raise TypeError(f"draft must be a string, not {type(text).__name__}")
+        self._check_writable()
+        with self._transaction() as conn:
+            conn.execute(_SAVE_DRAFT, (key, text, _utc_now()))
+
+    def clear_draft(self, key: str) -> None:
+        """Forget the draft of ``key`` (nothing happens when there is none)."""
+        _check_key(key)
+        self._check_writable()
+        with self._transaction() as conn:
+            conn.execute("DELETE FROM drafts WHERE key = ?", (key,))
+
+    def draft(self, key: str) -> str | None:
+        """The draft of the note of ``key``, or None when there is none."""
+        _check_key(key)
+        return self.drafts([key]).get(key)
+
+    def drafts(self, keys: list[str] | None = None) -> dict[str, str]:
+        """Every draft by key (only those of ``keys`` when given)."""
+        if not self._has_drafts:
+            return {}
+        with self._reading() as conn:
+            rows = conn.execute("SELECT key, text FROM drafts ORDER BY key").fetchall()
+        wanted = None if keys is None else set(keys)
+        return {key: text for key, text in rows if wanted is None or key in wanted}
 
     # -- lifetime ------------------------------------------------------------------------
 
@@ -555,6 +607,7 @@ class _Opened:
     created: bool
     has_table: bool
     versioned: bool
+    has_drafts: bool
 
 
 def _schema_action(path: Path, conn: sqlite3.Connection) -> tuple[_Action, bool]:
@@ -590,8 +643,17 @@ def _schema_action(path: Path, conn: sqlite3.Connection) -> tuple[_Action, bool]
     )
 
 
+def _has_drafts(conn: sqlite3.Connection) -> bool:
+    found = conn.execute(
+        "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'drafts'"
+    ).fetchone()
+    return found is not None
+
+
 def _prepare(conn: sqlite3.Connection, action: _Action) -> None:
-    """Create the tables of a new store, or bring a version-1 store to this version."""
+    """Create the tables of a new store, or bring a version-1 store to this version; add
+    the drafts table to any store without one."""
+    conn.execute(_CREATE_DRAFTS)
     if action == "create":
         conn.execute(_CREATE_REVIEWS)
         conn.execute(_CREATE_META)
@@ -622,7 +684,7 @@ def _open_writable(path: Path, timeout: float) -> _Opened:
         # synchronous is per connection, not stored in the file, so it is set on every open.
         conn.execute("PRAGMA synchronous=FULL")
         action, had_table = _schema_action(path, conn)
-        if action != "ready":
+        if action != "ready" or not _has_drafts(conn):
             conn.execute("BEGIN IMMEDIATE")
             # Look again under the write lock: another process may have prepared it meanwhile.
             action, had_table = _schema_action(path, conn)
@@ -635,7 +697,7 @@ def _open_writable(path: Path, timeout: float) -> _Opened:
         if isinstance(exc, sqlite3.Error):
             raise _store_error(path, exc, writing=False) from exc
         raise
-    return _Opened(conn, created=not had_table, has_table=True, versioned=True)
+    return _Opened(conn, created=not had_table, has_table=True, versioned=True, has_drafts=True)
 
 
 def _open_read_only(path: Path, timeout: float) -> _Opened:
@@ -658,12 +720,14 @@ def _open_read_only(path: Path, timeout: float) -> _Opened:
             raise _store_error(path, again, writing=False) from again
     try:
         action, has_table = _schema_action(path, conn)
+        drafts = _has_drafts(conn)
     except (sqlite3.Error, ReviewStoreError) as exc:
         conn.close()
         if isinstance(exc, sqlite3.Error):
             raise _store_error(path, exc, writing=False) from exc
         raise
-    return _Opened(conn, created=False, has_table=has_table, versioned=action != "migrate")
+    versioned = action != "migrate"
+    return _Opened(conn, False, has_table, versioned=versioned, has_drafts=drafts)
 
 
 def _read_only_connection(uri: str, timeout: float) -> sqlite3.Connection:

@@ -1,7 +1,12 @@
-"""Modal dialogs: the note editor, export, overwrite question, help and about."""
+"""Modal dialogs: the note editor, export, overwrite question, help and about.
+
+Every text that holds data (names, notes, paths) is given to its widget as ``Content`` made
+by ``widgets.plain.literal``: shown as it is, never read as markup."""
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
+from contextlib import suppress
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -9,10 +14,25 @@ from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.css.query import NoMatches
 from textual.screen import ModalScreen
-from textual.widgets import Button, Input, Label, Markdown, RadioButton, RadioSet, TextArea
+from textual.timer import Timer
+from textual.widgets import (
+    Button,
+    Input,
+    Label,
+    Markdown,
+    RadioButton,
+    RadioSet,
+    Static,
+    TextArea,
+)
 
 from ..session import SELECTIONS, Selection
+from ..widgets.plain import literal
+
+#: Keeps ``text`` as the draft of the open note; returns why it could not, or None.
+KeepDraft = Callable[[str], str | None]
 
 CAUTIONS = """\
 **Cautions.** foldsift's results are screening aids, not decisions. A ratio of geometric
@@ -24,40 +44,92 @@ accredited laboratory methods and qualified professional judgement, not this too
 """
 
 
+NOTE_HINT = "ctrl+s saves · escape cancels · ctrl+q keeps the note and quits"
+
+
 class NoteScreen(ModalScreen[str | None]):
-    """Multi-line note for one comparison; returns the text, or None when cancelled."""
+    """Multi-line note for one comparison; returns the text, or None when cancelled.
+
+    ``lines`` are said above the text (a draft restored, a note changed elsewhere and how
+    it reads now). With ``keep_draft``, the text is kept as a draft ``DRAFT_DELAY`` seconds
+    after each change, so that a note being typed survives a dropped connection."""
 
     BINDINGS = [
         Binding("ctrl+s", "save", "Save note", id="note.save"),
         Binding("escape", "cancel", "Cancel", id="note.cancel"),
     ]
+    #: Seconds of quiet after a change before the draft is kept.
+    DRAFT_DELAY = 0.5
 
-    def __init__(self, title: str, text: str) -> None:
+    def __init__(
+        self,
+        title: str,
+        text: str,
+        *,
+        lines: Sequence[str] = (),
+        keep_draft: KeepDraft | None = None,
+    ) -> None:
         super().__init__()
         self._title = title
-        self._text = text
+        self._lines = tuple(lines)
+        self._keep_draft = keep_draft
+        # Held here, not looked up: the text stays readable after the screen is removed
+        # (the app keeps it as a draft when it ends with the editor open).
+        self._area = TextArea(text, id="note-text", soft_wrap=True)
+        self._kept = text  # the text last kept (a draft, or the text the editor opened on)
+        self._timer: Timer | None = None
+        self._done = False
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
-            yield Label(self._title, classes="dialog-title")
-            yield TextArea(self._text, id="note-text", soft_wrap=True)
-            yield Label(
-                "ctrl+s saves · escape cancels · ctrl+q keeps the note and quits",
-                classes="dialog-hint",
-            )
+            yield Label(literal(self._title), classes="dialog-title")
+            if self._lines:
+                with VerticalScroll(id="note-lines"):
+                    for line in self._lines:
+                        yield Static(literal(line, lines=True), classes="dialog-line")
+            yield self._area
+            yield Label(NOTE_HINT, id="note-hint", classes="dialog-hint")
 
     def on_mount(self) -> None:
-        self.query_one(TextArea).focus()
+        self._area.focus()
+
+    @on(TextArea.Changed)
+    def _changed(self) -> None:
+        if self._keep_draft is None or self._done:
+            return
+        if self._timer is not None:
+            self._timer.stop()
+        self._timer = self.set_timer(self.DRAFT_DELAY, self.keep_draft)
+
+    def keep_draft(self) -> None:
+        """Keep the text as a draft now, if it changed since it was last kept."""
+        text = self.text
+        if self._keep_draft is None or self._done or text == self._kept:
+            return
+        problem = self._keep_draft(text)
+        if problem is None:
+            self._kept = text
+        hint = NOTE_HINT if problem is None else f"draft not kept: {problem}"
+        with suppress(NoMatches):  # the editor is being removed as the app ends
+            self.query_one("#note-hint", Label).update(literal(hint))
+
+    def stop_drafts(self) -> None:
+        """Keep no more drafts (the note is saved, cancelled or kept by the app)."""
+        self._done = True
+        if self._timer is not None:
+            self._timer.stop()
 
     def action_save(self) -> None:
-        self.dismiss(self.query_one(TextArea).text)
+        self.stop_drafts()
+        self.dismiss(self.text)
 
     def action_cancel(self) -> None:
+        self.stop_drafts()
         self.dismiss(None)
 
     @property
     def text(self) -> str:
-        return self.query_one(TextArea).text
+        return self._area.text
 
 
 @dataclass(frozen=True)
@@ -118,13 +190,14 @@ class ExportScreen(ModalScreen[ExportChoice | None]):
     def submit(self) -> None:
         text = self.query_one("#export-path", Input).value.strip()
         if not text:
-            self.query_one("#export-error", Label).update("give a file name")
+            self.query_one("#export-error", Label).update(literal("give a file name"))
             return
         path = Path(text).expanduser()
         if path.suffix.lower() != ".csv":
             path = path.with_name(path.name + ".csv")
         if not path.parent.exists():
-            self.query_one("#export-error", Label).update(f"folder {path.parent} does not exist")
+            missing = f"folder {path.parent} does not exist"
+            self.query_one("#export-error", Label).update(literal(missing))
             return
         self.dismiss(ExportChoice(path=path, rows=self._rows()))
 
@@ -147,7 +220,7 @@ class ConfirmScreen(ModalScreen[bool]):
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
-            yield Label(self._question, classes="dialog-title")
+            yield Label(literal(self._question), classes="dialog-title")
             with Horizontal(classes="dialog-buttons"):
                 yield Button("Yes (y)", variant="warning", id="confirm-yes")
                 yield Button("No (n)", id="confirm-no")
@@ -164,17 +237,22 @@ class ConfirmScreen(ModalScreen[bool]):
 
 
 class TextScreen(ModalScreen[None]):
-    """A scrollable page of Markdown (help, about); escape or q closes it."""
+    """A scrollable page of Markdown (help, about) written by the app, then ``lines`` that
+    hold data (the review file, reviews that match no comparison), shown as they are;
+    escape or q closes it."""
 
     BINDINGS = [Binding("escape,q,question_mark", "close", "Close", id="page.close")]
 
-    def __init__(self, markdown: str) -> None:
+    def __init__(self, markdown: str, lines: Sequence[str] = ()) -> None:
         super().__init__()
         self._markdown = markdown
+        self._lines = tuple(lines)
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(classes="dialog page"):
             yield Markdown(self._markdown)
+            if self._lines:
+                yield Static(literal("\n".join(self._lines), lines=True), classes="page-lines")
             yield Label("escape closes", classes="dialog-hint")
 
     def action_close(self) -> None:

@@ -17,14 +17,14 @@ KEYS: tuple[tuple[str, str], ...] = (
     ("/", "type in the filter line (enter returns to the list)"),
     ("space", "flag or unflag the highlighted comparison"),
     ("1 / 2 / 3 / 0", "decision: keep / doubt / drop / none"),
-    ("n", "write a note (ctrl+s saves, escape cancels)"),
+    ("n", "write a note (ctrl+s saves, escape cancels; a draft is kept as you type)"),
     ("b", "cross-checks: bootstrap CI of the median ratio, Hodges-Lehmann"),
     ("B / escape", "cross-check every shown comparison (progress in the status) / stop"),
     ("x", "export flagged, decided, filtered or all rows to CSV"),
     ("z", "pane sizes: balanced, large detail, large list"),
     ("tab", "move between the list, the filter and the detail"),
-    ("?  /  i", "this help / about and cautions"),
-    ("ctrl+q", "quit (every change is already saved)"),
+    ("?  /  i", "this help / about, cautions and what the review file holds"),
+    ("ctrl+q", "quit (every change is already saved; an open note is saved too)"),
 )
 
 

@@ -5,11 +5,18 @@ The screen holds the state of the view (sort, filter, pane sizes, the status mes
 reactives and sets its widgets from them and from the session ("attributes down"); widgets
 tell it what happened by messages ("messages up"). Keys become calls on the session: flags,
 decisions, notes, cross-checks and exports all go through ``ReviewSession``.
+
+Another session may write the same review file. A change refused because the review was
+changed there (``ReviewConflict``) shows the review as it is now and says that the same key
+applies the change; the note editor shows the other text before replacing it. A note being
+typed is kept as a draft at every pause and restored when the editor next opens on it.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
+from contextlib import suppress
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal, get_args
 
@@ -23,13 +30,14 @@ from textual.screen import Screen
 from textual.widgets import Footer, Input
 from textual.worker import get_current_worker
 
+from foldsift.stats.columns import ReviewedRow
 from foldsift.stats.robust import CheckJob
 from foldsift.stats.sentence import readable_outcome, stratum_phrase
 from foldsift.stats.vocabulary import DECISIONS, choose
 
 from ..messages import CrossCheckDone, CrossCheckProgress
 from ..session import DEFAULT_SORT, ReviewSession, Selection
-from ..store import ReviewStoreError
+from ..store import Review, ReviewConflict, ReviewStoreBusy, ReviewStoreError
 from ..widgets.comparison_list import SORT_NAMES, SORTABLE, ComparisonList
 from ..widgets.detail import Detail, Subject
 from ..widgets.status_line import Notice, StatusLine, ViewSummary
@@ -59,6 +67,57 @@ FILTER_HINT = (
     "filter: words · q<0.05 · ratio>2 · outside:0.8,1.25 · warned · flagged · undecided"
     "  (/ to type, ? for all)"
 )
+BUSY = "review file busy — not saved, try again"
+DRAFT_RESTORED = "unsaved draft restored: ctrl+s saves it, escape keeps the saved note"
+CHANGED_ELSEWHERE = (
+    "this review was changed in another session since it was shown: the note is shown as it is now"
+)
+#: The key that repeats each decision.
+DECISION_KEYS = {"keep": "1", "doubt": "2", "drop": "3"}
+#: How many characters of another session's note the status line quotes.
+QUOTED = 60
+
+
+def comparison_name(row: ReviewedRow) -> str:
+    """``copper (mg/kg), north ÷ south (site)``: which comparison a note belongs to."""
+    return (
+        f"{readable_outcome(row['outcome'])}, {row['level_b']} ÷ {row['level_a']} "
+        f"({row['grouping']}{stratum_phrase(row)})"
+    )
+
+
+def review_state(review: Review | None) -> str:
+    """A review in a few words, for the status line."""
+    if review is None:
+        return "no flag, decision or note"
+    note = " ".join(review.note.split())
+    if len(note) > QUOTED:
+        note = note[: QUOTED - 1] + "…"
+    return ", ".join(
+        [
+            "flagged" if review.flagged else "not flagged",
+            f"decision {review.decision}" if review.decision else "no decision",
+            f"note “{note}”" if note else "no note",
+        ]
+    )
+
+
+def conflict_text(current: Review | None, again: str) -> str:
+    """Why a change was not saved when another session changed the review first."""
+    what = "removed this review" if current is None else "changed this review"
+    return (
+        f"not saved: another session {what}; now {review_state(current)} — press {again}"
+        " again to apply your change"
+    )
+
+
+@dataclass(frozen=True)
+class OpenNote:
+    """The note editor that is open: for which key, over which saved note."""
+
+    key: str
+    before: str
+    editor: NoteScreen
 
 
 class ReviewScreen(Screen[None]):
@@ -96,7 +155,7 @@ class ReviewScreen(Screen[None]):
         self.session = session
         self.export_dir = export_dir
         self._check_all_on_open = check_all_on_open
-        self._note: tuple[str, str] | None = None  # key and saved text of the open note
+        self._note: OpenNote | None = None
 
     # -- layout and the view ---------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -114,11 +173,53 @@ class ReviewScreen(Screen[None]):
             self.action_robust_shown()
 
     def _opening_notice(self) -> Notice:
-        text = f"reviews are saved as you go in {self.session.store.path}"
+        """What opening found: a new review file, reviews of earlier data, reviews that
+        match no comparison, note drafts left from before."""
+        store = self.session.store
+        parts = [
+            f"started a new review file at {store.path}; reviews are saved as you go"
+            if store.created
+            else f"reviews are saved as you go in {store.path}"
+        ]
         earlier = self.session.counts()["earlier"]
         if earlier:
-            text += f"; {earlier} review(s) were made on an earlier version of the data (italics)"
-        return Notice(text)
+            parts.append(
+                f"{earlier} review(s) were made on an earlier version of the data (italics)"
+            )
+        unmatched = len(self.session.unmatched_reviews)
+        if unmatched:
+            parts.append(
+                f"{unmatched} review(s) in the file match no comparison of this data"
+                " (kept; i lists them)"
+            )
+        drafts = self._guarded(self.session.pending_drafts) or {}
+        if drafts:
+            parts.append(f"{len(drafts)} unsaved note draft(s) from before (i lists them)")
+        return Notice("; ".join(parts))
+
+    def about_lines(self) -> list[str]:
+        """The review file, and what it holds that the list does not show, for the about
+        page: reviews that match no comparison, and note drafts."""
+        lines = [f"Review file: {self.session.store.path}"]
+        unmatched = self.session.unmatched_reviews
+        if unmatched:
+            lines += ["", "Reviews in the file that match no comparison of this data (kept):"]
+            lines += [f"  {key}" for key in unmatched]
+        drafts = self._guarded(self.session.pending_drafts) or {}
+        if drafts:
+            lines += ["", "Unsaved note drafts (n on the comparison restores one):"]
+            for key in drafts:
+                row = self.session.row(key)
+                lines.append(f"  {comparison_name(row) if row else key}")
+        return lines
+
+    def _guarded(self, read: Callable[[], dict[str, str]]) -> dict[str, str] | None:
+        """``read()``, or None (said in the status line) when the review file fails."""
+        try:
+            return read()
+        except ReviewStoreError as error:
+            self.notice = Notice(str(error), "error")
+            return None
 
     def _show_view(self) -> None:
         """The session's view in the list, the cursor at the top."""
@@ -152,7 +253,8 @@ class ReviewScreen(Screen[None]):
         self._show_detail()
 
     def watch_notice(self, notice: Notice | None) -> None:
-        self.query_one(StatusLine).notice = notice
+        with suppress(NoMatches):  # said while the app ends (keeping a note's draft failed)
+            self.query_one(StatusLine).notice = notice
 
     def watch_panes(self, old: PaneLayout, new: PaneLayout) -> None:
         self.set_class(False, old)
@@ -213,64 +315,160 @@ class ReviewScreen(Screen[None]):
         self.set_focus(self.query_one("#filter", Input))
 
     # -- reviewing -------------------------------------------------------------------------
-    def _review(self, change: Callable[[str], object], key: str | None = None) -> None:
-        """Save one change of the row ``key`` (default: the highlighted one) and show it.
+    def _review(self, change: Callable[[str], object], again: str) -> None:
+        """Save one change of the highlighted row and show it; ``again`` names the key that
+        repeats the change (said when another session changed the review first).
 
         The row stays where it is even if it no longer matches the filter or the sort: a row
         that vanished under the cursor would make the next key act on its neighbour. Editing
         the filter or sorting again applies them afresh."""
-        listing = self.query_one(ComparisonList)
-        key = key or listing.current_key
+        key = self.query_one(ComparisonList).current_key
         if key is None:
             return
         try:
             change(key)
         except ReviewStoreError as error:
-            self.notice = Notice(f"NOT SAVED: {error}", "error")
-            self.app.bell()
+            self._not_saved(key, error, again)
             return
+        self._saved(key)
+
+    def _not_saved(self, key: str, error: ReviewStoreError, again: str) -> None:
+        """Say why a change of ``key`` was not saved; after a change elsewhere, show the row
+        as it is stored now."""
+        if isinstance(error, ReviewConflict):
+            self._show_row(key)  # the session has read the row as it is now
+            self.notice = Notice(conflict_text(error.current, again), "error")
+        elif isinstance(error, ReviewStoreBusy):
+            self.notice = Notice(BUSY, "error")
+        else:
+            self.notice = Notice(f"NOT SAVED: {error}", "error")
+        self.app.bell()
+
+    def _saved(self, key: str) -> None:
+        """A change of ``key`` is saved: show it; an error said about an earlier change
+        no longer holds."""
+        if self.notice is not None and self.notice.severity == "error":
+            self.notice = None
+        self._show_row(key)
+
+    def _show_row(self, key: str) -> None:
+        """The stored review of ``key`` in the list, the counts and the detail."""
+        listing = self.query_one(ComparisonList)
         listing.update_rows(self.session.apply_review(listing.frame, key))
         self._show_summary()
         self._show_detail()
 
     def action_toggle_flag(self) -> None:
-        self._review(self.session.toggle_flag)
+        self._review(self.session.toggle_flag, "space")
 
     def action_decide(self, decision: str) -> None:
         chosen = choose(decision, DECISIONS, "decision")
-        self._review(lambda key: self.session.decide(key, chosen))
+        self._review(lambda key: self.session.decide(key, chosen), DECISION_KEYS[chosen])
 
     def action_clear_decision(self) -> None:
-        self._review(lambda key: self.session.decide(key, None))
+        self._review(lambda key: self.session.decide(key, None), "0")
 
+    # -- notes -----------------------------------------------------------------------------
     def action_edit_note(self) -> None:
-        row = self.query_one(ComparisonList).current_row
+        """Open the note editor on the note as stored now, or on its draft."""
+        key = self.query_one(ComparisonList).current_key
+        if key is None:
+            return
+        lines = []
+        try:
+            if self.session.reload(key):
+                lines.append(CHANGED_ELSEWHERE)
+            draft = self.session.draft(key)
+        except ReviewStoreError as error:
+            self.notice = Notice(str(error), "error")
+            return
+        self._show_row(key)
+        row = self.session.row(key)
         if row is None:
             return
-        key, before = row["key"], row["note"]
-        title = (
-            f"Note: {readable_outcome(row['outcome'])}, {row['level_b']} ÷ {row['level_a']} "
-            f"({row['grouping']}{stratum_phrase(row)})"
+        before = row["note"]
+        if draft is not None and draft != before:
+            lines.append(DRAFT_RESTORED)
+        elif draft is not None:
+            self._drop_draft(key)  # saved meanwhile: nothing to restore
+        text = before if draft is None else draft
+        self._open_editor(key, before, text, lines)
+
+    def _open_editor(self, key: str, before: str, text: str, lines: list[str]) -> None:
+        row = self.session.row(key)
+        title = f"Note: {comparison_name(row) if row else key}"
+        editor = NoteScreen(
+            title, text, lines=lines, keep_draft=lambda typed: self._keep_draft(key, typed)
         )
+        self._note = OpenNote(key, before, editor)
+        self.app.push_screen(editor, lambda typed: self._note_closed(key, typed))
 
-        def done(text: str | None) -> None:
-            self._note = None
-            if text is not None:
-                self._review(lambda k: self.session.set_note(k, text), key)
-
-        self._note = (key, before)
-        self.app.push_screen(NoteScreen(title, before), done)
-
-    def keep_open_note(self) -> None:
-        """Save what the note editor holds, if it is open and changed (quitting from the
-        editor keeps what was typed)."""
-        editor = self.app.screen
-        if self._note is None or not isinstance(editor, NoteScreen):
+    def _note_closed(self, key: str, typed: str | None) -> None:
+        note, self._note = self._note, None
+        if typed is None:  # cancelled: the saved note stays, the draft goes
+            self._drop_draft(key)
             return
-        key, before = self._note
-        text = editor.text
-        if text != before:
-            self._review(lambda k: self.session.set_note(k, text), key)
+        try:
+            self.session.set_note(key, typed)
+        except ReviewStoreError as error:
+            self._note_not_saved(key, typed, error, note.before if note else "")
+            return
+        self._saved(key)
+
+    def _note_not_saved(self, key: str, typed: str, error: ReviewStoreError, before: str) -> None:
+        """The note was not saved: open the editor again on what was typed, with the note
+        as another session wrote it, or with the reason."""
+        self._not_saved(key, error, "ctrl+s")
+        self._keep_draft(key, typed)  # until it is saved, what was typed is a draft
+        if isinstance(error, ReviewConflict):
+            theirs = "" if error.current is None else error.current.note
+            lines = [
+                "not saved: another session changed this note since the editor opened; it"
+                " now reads:",
+                theirs or "(no note)",
+                "ctrl+s saves yours over it · escape keeps theirs",
+            ]
+            before = theirs
+        else:
+            lines = [BUSY if isinstance(error, ReviewStoreBusy) else f"not saved: {error}"]
+        self._open_editor(key, before, typed, lines)
+
+    def _keep_draft(self, key: str, text: str) -> str | None:
+        """Keep ``text`` as the draft of the note of ``key``; why not, if it fails."""
+        try:
+            self.session.keep_draft(key, text)
+        except ReviewStoreBusy:
+            return "the review file is busy; it is kept at the next change"
+        except ReviewStoreError as error:
+            return str(error)
+        return None
+
+    def _drop_draft(self, key: str) -> None:
+        try:
+            self.session.drop_draft(key)
+        except ReviewStoreError as error:
+            self.notice = Notice(f"the note's draft was not removed: {error}", "error")
+
+    def keep_open_note(self, *, as_draft: bool = False) -> None:
+        """Keep what the open note editor holds when the app ends with it open: as the
+        note (ctrl+q: the reviewer chose to quit from the editor), or as a draft (a hang-up
+        or a kill). A note that cannot be saved (changed elsewhere, file busy) is kept as a
+        draft: it never replaces another session's note unseen."""
+        note, self._note = self._note, None
+        if note is None:
+            return
+        note.editor.stop_drafts()
+        text = note.editor.text
+        if text == note.before:
+            self._drop_draft(note.key)  # nothing unsaved
+            return
+        if not as_draft:
+            try:
+                self.session.set_note(note.key, text)
+                return
+            except ReviewStoreError:
+                pass
+        self._keep_draft(note.key, text)
 
     # -- cross-checks ----------------------------------------------------------------------
     def action_robust(self) -> None:

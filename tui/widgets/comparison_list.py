@@ -24,6 +24,8 @@ from foldsift.stats import columns as col
 from foldsift.stats.columns import ReviewedRow, reviewed_row
 from foldsift.stats.formatting import interval_text, p_text, percent_text, ratio_text
 
+from .plain import visible
+
 
 @dataclass(frozen=True)
 class Column:
@@ -80,7 +82,10 @@ SEPARATOR = " "
 
 
 def _cell(text: str, column: Column) -> str:
-    """Fit text to the column by terminal cells (wide characters take two)."""
+    """Fit text to the column by terminal cells (wide characters take two). Names come
+    from the data: control characters show as symbols (rows are painted as plain
+    segments, so nothing in them is read as markup)."""
+    text = visible(text)
     if cell_len(text) > column.width:
         text = set_cell_size(text, column.width - 1) + "…"
     padding = " " * (column.width - cell_len(text))

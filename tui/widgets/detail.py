@@ -9,6 +9,7 @@ import numpy as np
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.containers import Horizontal, VerticalScroll
+from textual.css.query import NoMatches
 from textual.reactive import var
 from textual.timer import Timer
 from textual.widgets import Static
@@ -19,6 +20,7 @@ from foldsift.stats.sentence import readable_outcome
 
 from .facts import facts_text
 from .histograms import back_to_back
+from .plain import visible
 
 #: Both groups' usable values for a row: (a, b).
 ValuesOf = Callable[[ReviewedRow], tuple[np.ndarray, np.ndarray]]
@@ -112,7 +114,11 @@ class Charts(Static):
         a, b = self._values_of(row)
         width = max(self.size.width - 1, 30)
         height = max(self.size.height // 2, 7)
-        legend = f"{readable_outcome(row['outcome'])}: ▲ b {row['level_b']} · ▼ a {row['level_a']}"
+        # Names from the data, with control characters as symbols: the chart's text is read
+        # back with Text.from_ansi, which would obey escape sequences in a name.
+        legend = visible(
+            f"{readable_outcome(row['outcome'])}: ▲ b {row['level_b']} · ▼ a {row['level_a']}"
+        )
         raw = back_to_back(a, b, log_scale=False, width=width, height=height, title=legend)
         log_title = "log scale (ticks in raw units) · lines: GM, + median"
         log = back_to_back(a, b, log_scale=True, width=width, height=height, title=log_title)
@@ -136,6 +142,10 @@ class Detail(Horizontal):
         yield Charts(self._values_of, id="plots")
 
     def watch_subject(self, old: Subject, new: Subject) -> None:
-        self.query_one(Facts).show(new)
+        try:
+            facts, charts = self.query_one(Facts), self.query_one(Charts)
+        except NoMatches:  # a late message while the app ends: the panes are gone
+            return
+        facts.show(new)
         if old.key != new.key or new.row is None:
-            self.query_one(Charts).show(new.row)
+            charts.show(new.row)

@@ -1,6 +1,7 @@
 """The facts of one comparison as a single rich Text: the sentence, a small aligned table of
 numbers, the warnings explained and the review state. One Text (not a rich Table) keeps the
-repaint cheap when the cursor moves. Every number is written by ``stats.formatting``."""
+repaint cheap when the cursor moves. Every number is written by ``stats.formatting``. Names
+and notes are appended as plain text (never markup), their control characters as symbols."""
 
 from __future__ import annotations
 
@@ -26,6 +27,7 @@ from foldsift.stats.robust import RobustCheck
 from foldsift.stats.sentence import finding
 
 from .histograms import STYLE_A, STYLE_B
+from .plain import make_visible, visible
 
 LABEL_WIDTH = 18
 VALUE_WIDTH = 13
@@ -46,6 +48,7 @@ class _Table:
         self.text.append(label[: self.label_width].ljust(self.label_width))
 
     def heads(self, level_a: str, level_b: str) -> None:
+        level_a, level_b = visible(level_a), visible(level_b)
         self.text.append(" " * self.label_width)
         head_a = f"a: {level_a}"[: self.value_width - 1].ljust(self.value_width)
         self.text.append(head_a, style=f"bold {STYLE_A}")
@@ -137,7 +140,7 @@ def _review(text: Text, row: ReviewedRow) -> None:
         text.append(" · ".join(state) + "\n", style="bold")
     if row["note"]:
         text.append("note: ", style="bold")
-        text.append(row["note"] + "\n")
+        text.append(visible(row["note"], lines=True) + "\n")
 
 
 def facts_text(
@@ -145,7 +148,7 @@ def facts_text(
 ) -> Text:
     """The facts as one Text; ``width`` narrows the columns so that rows fit a small pane."""
     text = Text()
-    text.append(finding(row) + "\n\n", style="bold")
+    text.append(visible(finding(row)) + "\n\n", style="bold")
     table = _Table(text, width)
     _groups(table, row)
     text.append("\n")
@@ -154,4 +157,4 @@ def facts_text(
     text.append("\n")
     _warnings(text, row)
     _review(text, row)
-    return text
+    return make_visible(text)

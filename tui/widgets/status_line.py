@@ -9,6 +9,8 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual.widget import Widget
 
+from .plain import literal_text, visible
+
 #: How a message reads: ``error`` for what went wrong (not saved, export failed, a filter
 #: word that cannot be read), ``info`` for the rest.
 Severity = Literal["info", "error"]
@@ -69,9 +71,10 @@ def _summary_text(summary: ViewSummary) -> Text:
         ("  sort ", "dim"),
         (f"{summary.sort} {order}", "bold"),
         ("  filter ", "dim"),
-        (summary.filter or "none", "bold"),
+        (visible(summary.filter) or "none", "bold"),
     )
 
 
 def _notice_text(notice: Notice) -> Text:
-    return Text(notice.text, style="bold red" if notice.severity == "error" else "italic")
+    # Messages quote paths, notes and names from the data: never markup.
+    return literal_text(notice.text, "bold red" if notice.severity == "error" else "italic")
