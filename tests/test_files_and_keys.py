@@ -254,3 +254,39 @@ def test_export_through_a_read_only_review_file(tmp_path, which):
     assert reviews.read_bytes() == before
     result = run_scan(load_table(data))
     assert result.comparisons["key"].to_list() == ["site|lead|a|b"]
+
+
+# -- long work says it is still going -----------------------------------------------------
+
+
+def test_a_slow_read_reports_progress_on_stderr(tmp_path, capsys, monkeypatch):
+    """Data arriving slowly (a named pipe fed over about a second) makes the scan report
+    that it is still reading; a quick run stays silent (README: long work reports
+    progress on stderr)."""
+    import threading
+    import time
+
+    import foldsift.tui.cli as cli
+
+    monkeypatch.setattr(cli, "PROGRESS_AFTER", 0.2)
+    data = _write_table(tmp_path / "quick.csv", ["a", "b"])
+    assert main(["scan", str(data), "--out", str(tmp_path / "q.csv")]) == 0
+    assert "still" not in capsys.readouterr().err
+    fifo = tmp_path / "slow.csv"
+    os.mkfifo(fifo)
+    text = data.read_text()
+
+    def feed() -> None:
+        with fifo.open("w") as pipe:
+            for line in text.splitlines(keepends=True):
+                pipe.write(line)
+                pipe.flush()
+                time.sleep(0.06)
+
+    writer = threading.Thread(target=feed, daemon=True)
+    writer.start()
+    assert main(["scan", str(fifo), "--out", str(tmp_path / "s.csv")]) == 0
+    writer.join(timeout=20)
+    err = capsys.readouterr().err
+    assert "foldsift: still reading and scanning slow.csv" in err
+    assert pl.read_csv(tmp_path / "s.csv").height == 1

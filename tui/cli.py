@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Callable
+import threading
+import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 from foldsift.stats.equivalence import DEFAULT_BAND, parse_band
@@ -259,6 +262,35 @@ def options_from(args: argparse.Namespace) -> SessionOptions:
     )
 
 
+#: Seconds of silence after which long work reports that it is still going.
+PROGRESS_AFTER = 2.0
+
+
+@contextmanager
+def _progress(what: str, every: float | None = None) -> Iterator[None]:
+    """Say on stderr, every few seconds, that ``what`` is still going (silent when it ends
+    sooner, so quick runs print nothing more)."""
+    done = threading.Event()
+    start = time.monotonic()
+    pause = PROGRESS_AFTER if every is None else every
+
+    def report() -> None:
+        while not done.wait(pause):
+            print(
+                f"foldsift: still {what} ({time.monotonic() - start:.0f} s)",
+                file=sys.stderr,
+                flush=True,
+            )
+
+    reporter = threading.Thread(target=report, daemon=True)
+    reporter.start()
+    try:
+        yield
+    finally:
+        done.set()
+        reporter.join()
+
+
 def _fail(message: str) -> int:
     print(f"foldsift: {message}", file=sys.stderr)
     return EXIT_BAD_INPUT
@@ -337,7 +369,8 @@ def command_scan(args: argparse.Namespace) -> int:
     options = options_from(args)
     if args.robust and options.summary:
         return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
-    result = scan(options)
+    with _progress(f"reading and scanning {options.data_path.name}"):
+        result = scan(options)
     _describe(result)
     comparisons = result.comparisons
     if args.robust:
@@ -406,7 +439,8 @@ def command_export(args: argparse.Namespace) -> int:
             f"{options.review_file}: no review file yet, so nothing is {which}; review the data "
             "first, give --reviews PATH, or export --rows all"
         )
-    session = ReviewSession.open_to_read(options)
+    with _progress(f"reading and scanning {options.data_path.name}"):
+        session = ReviewSession.open_to_read(options)
     try:
         error = session.set_filter(args.filter or "")
         if error:
