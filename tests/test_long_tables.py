@@ -730,3 +730,33 @@ def test_wide_option_keeps_a_long_looking_table_wide(tmp_path: Path, capsys) -> 
     assert main(["scan", str(path), "--wide", "--out", str(out)]) == 0
     assert LONG_NOTE not in capsys.readouterr().err
     assert "result" in pl.read_csv(out)["outcome"].to_list()
+
+
+def test_the_detail_shows_laboratory_code_counts_per_group(tmp_path: Path) -> None:
+    """The detail pane lists, per group, entries below detection without a limit, above the
+    range and estimated (J) when a group has any; a plain comparison shows none of them
+    (issue 9: counts shown where the data is reviewed)."""
+    from foldsift.tui.session import ReviewSession, SessionOptions
+    from foldsift.tui.widgets.facts import facts_text
+
+    rows = ["sample_id,site,analyte,result,unit"]
+    for i in range(8):
+        site = "xy"[i % 2]
+        code = {0: "ND", 1: ">900", 2: "4.5 J"}.get(i, f"{3 + i}.5")
+        rows.append(f"S{i},{site},zinc,{code},mg/L")
+        rows.append(f"S{i},{site},iron,{2 + i}.25,mg/L")
+    path = tmp_path / "codes.csv"
+    path.write_text("\n".join(rows) + "\n")
+    session = ReviewSession.open(SessionOptions(path, reviews_path=tmp_path / "r.sqlite"))
+    try:
+        by_outcome = {
+            row["outcome"]: row
+            for row in session.rows.iter_rows(named=True)  # type: ignore[misc]
+        }
+        zinc = str(facts_text(by_outcome["zinc (mg/L)"], (0.8, 1.25), None, 100))
+        iron = str(facts_text(by_outcome["iron (mg/L)"], (0.8, 1.25), None, 100))
+    finally:
+        session.close()
+    for label in ("ND, no limit", "above range", "estimated (J)"):
+        assert label in zinc, zinc
+        assert label not in iron

@@ -78,6 +78,12 @@ GROUP_ROWS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
     ("skewness (raw)", "skew_raw", number_text),
     ("Shapiro p (logs)", "shapiro_p", p_text),
 )
+#: Rows shown only when either group has such entries (laboratory codes).
+CODE_ROWS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
+    ("ND, no limit", "n_no_limit", count_text),
+    ("above range", "n_above_range", count_text),
+    ("estimated (J)", "n_estimated", count_text),
+)
 
 
 def _groups(table: _Table, row: ReviewedRow) -> None:
@@ -86,6 +92,10 @@ def _groups(table: _Table, row: ReviewedRow) -> None:
     for label, figure, write in GROUP_ROWS:
         a, b = figures[col.side(figure, "a")], figures[col.side(figure, "b")]
         table.pair(label, write(a), write(b))
+    for label, figure, write in CODE_ROWS:
+        a, b = figures[col.side(figure, "a")], figures[col.side(figure, "b")]
+        if a or b:
+            table.pair(label, write(a), write(b))
 
 
 def _estimates(table: _Table, row: ReviewedRow, band: tuple[float, float]) -> None:
