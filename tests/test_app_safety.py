@@ -79,10 +79,11 @@ def painted_lines(widget: Widget) -> list[str]:
     return [widget.render_line(y).text for y in range(widget.size.height)]
 
 
-async def click_across(pilot: Pilot, widget: Widget, y: int = 0) -> None:
-    """Click every cell of line y of the widget (a click on "[@click=...]" text that was
-    read as markup would run the action)."""
-    for x in range(min(widget.size.width, 100)):
+async def click_across(pilot: Pilot, widget: Widget, y: int = 0, cells: int = 100) -> None:
+    """Click every cell of line y of the widget, as far as its text reaches or `cells` (a
+    click on "[@click=...]" text that was read as markup would run the action)."""
+    line = widget.render_line(y).text.rstrip()
+    for x in range(min(len(line), widget.size.width, cells)):
         await pilot.click(widget, offset=(x, y))
 
 
@@ -116,7 +117,7 @@ async def test_names_and_notes_holding_markup_show_literally(tmp_path: Path) -> 
         charts = review(app).query_one("#plots", Widget)
         outcome = readable_outcome(current(app)["outcome"])
         await until(pilot, lambda: outcome in shown_text(charts), "the chart's legend")
-        await click_across(pilot, listing(app), y=1)
+        await click_across(pilot, listing(app), y=1, cells=40)  # the outcome and the levels
         await click_across(pilot, review(app).query_one("#sentence", Widget))
         assert app.is_running
 
