@@ -194,40 +194,56 @@ def _sum_by(codes: IntArray, weights: FloatArray, size: int) -> FloatArray:
 @dataclass(frozen=True)
 class _Problem:
     """Observations on a standardised log scale u. Each unit has one scale parameter beta and
-    ``k`` location parameters alpha (cells ``unit * k + j``); z = beta * u - alpha."""
+    ``k`` location parameters alpha (cells ``unit * k + j``); z = beta * u - alpha.
 
+    Detected observations enter through their sufficient statistics per cell (count, sum of
+    u, sum of u^2): their terms are quadratic in (alpha, beta). Censored observations are
+    kept one per distinct (cell, limit, side) with its count as a weight, so a group's cost
+    per iteration grows with its distinct limits, not its size."""
+
+    cell: IntArray  # per censored entry (distinct)
     u: FloatArray
-    cell: IntArray
-    unit: IntArray
-    censored_at: IntArray  # indices of censored observations
-    sign: FloatArray  # +1 left-censored, -1 right-censored, for those observations
+    sign: FloatArray  # +1 left-censored, -1 right-censored
+    weight: FloatArray  # how many entries share that cell, limit and side
     n_units: int
     k: int
-    detected: FloatArray  # detected observations per unit
+    count: FloatArray  # per cell: detected observations, their sum of u and of u^2
+    s1: FloatArray
+    s2: FloatArray
+
+    @property
+    def unit(self) -> IntArray:
+        unit: IntArray = self.cell // self.k
+        return unit
+
+    @property
+    def detected(self) -> FloatArray:
+        """Detected observations per unit."""
+        return np.asarray(self.count.reshape(self.n_units, self.k).sum(axis=1), dtype=np.float64)
 
 
-def _terms(problem: _Problem, alpha: FloatArray, beta: FloatArray) -> tuple[FloatArray, ...]:
-    """Per observation: z, the log-likelihood term (without ln beta), and its first and second
-    derivatives with respect to z."""
+def _censored_terms(
+    problem: _Problem, alpha: FloatArray, beta: FloatArray
+) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """Per distinct censored entry: ln Phi(w) and its first and second derivatives with
+    respect to z (w = sign * z)."""
     z = beta[problem.unit] * problem.u - alpha[problem.cell]
-    term = -0.5 * z * z
-    first = -z
-    second = np.full_like(z, -1.0)
-    if problem.censored_at.size:
-        w = problem.sign * z[problem.censored_at]
-        log_cdf = special.log_ndtr(w)
-        mills = np.exp(-0.5 * w * w - _LOG_ROOT_2PI - log_cdf)
-        term[problem.censored_at] = log_cdf
-        first[problem.censored_at] = problem.sign * mills
-        second[problem.censored_at] = -np.clip(mills * (w + mills), 0.0, 1.0)
-    return z, term, first, second
+    w = problem.sign * z
+    log_cdf = special.log_ndtr(w)
+    mills = np.exp(-0.5 * w * w - _LOG_ROOT_2PI - log_cdf)
+    return log_cdf, problem.sign * mills, -np.clip(mills * (w + mills), 0.0, 1.0)
 
 
 def _log_likelihood(problem: _Problem, alpha: FloatArray, beta: FloatArray) -> FloatArray:
     ok = beta > 0
     safe = np.where(ok, beta, 1.0)
-    _, term, _, _ = _terms(problem, alpha, safe)
-    total = _sum_by(problem.unit, term, problem.n_units) + problem.detected * np.log(safe)
+    k, units = problem.k, problem.n_units
+    b = np.repeat(safe, k)
+    quadratic = -0.5 * (b * b * problem.s2 - 2 * alpha * b * problem.s1 + problem.count * alpha**2)
+    total = quadratic.reshape(units, k).sum(axis=1) + problem.detected * np.log(safe)
+    if problem.cell.size:
+        log_cdf, _, _ = _censored_terms(problem, alpha, safe)
+        total = total + _sum_by(problem.unit, problem.weight * log_cdf, units)
     return np.asarray(np.where(ok & np.isfinite(total), total, -np.inf), dtype=np.float64)
 
 
@@ -235,27 +251,32 @@ def _gradient_hessian(
     problem: _Problem, alpha: FloatArray, beta: FloatArray
 ) -> tuple[FloatArray, FloatArray]:
     """Gradient (units, k + 1) and Hessian (units, k + 1, k + 1) in (alpha_1..alpha_k, beta)."""
-    _, _, first, second = _terms(problem, alpha, beta)
-    u, k, units = problem.u, problem.k, problem.n_units
-    cells = units * k
-
-    def per_cell(weights: FloatArray) -> FloatArray:
-        return _sum_by(problem.cell, weights, cells).reshape(units, k)
-
-    def per_unit(weights: FloatArray) -> FloatArray:
-        return _sum_by(problem.unit, weights, units)
-
+    k, units = problem.k, problem.n_units
+    b = np.repeat(beta, k)
+    # Detected terms -(beta u - alpha)^2 / 2, summed per cell.
+    g_alpha = b * problem.s1 - problem.count * alpha
+    g_beta_cell = -(b * problem.s2 - alpha * problem.s1)
+    h_alpha = -problem.count
+    h_cross = problem.s1
+    h_beta_cell = -problem.s2
+    if problem.cell.size:
+        _, first, second = _censored_terms(problem, alpha, beta)
+        w, u, cells = problem.weight, problem.u, units * k
+        g_alpha = g_alpha - _sum_by(problem.cell, w * first, cells)
+        g_beta_cell = g_beta_cell + _sum_by(problem.cell, w * u * first, cells)
+        h_alpha = h_alpha + _sum_by(problem.cell, w * second, cells)
+        h_cross = h_cross - _sum_by(problem.cell, w * u * second, cells)
+        h_beta_cell = h_beta_cell + _sum_by(problem.cell, w * u * u * second, cells)
     gradient = np.empty((units, k + 1))
-    gradient[:, :k] = -per_cell(first)
-    gradient[:, k] = per_unit(u * first) + problem.detected / beta
+    gradient[:, :k] = g_alpha.reshape(units, k)
+    gradient[:, k] = g_beta_cell.reshape(units, k).sum(axis=1) + problem.detected / beta
     hessian = np.zeros((units, k + 1, k + 1))
-    cross = -per_cell(u * second)
-    diagonal = per_cell(second)
+    diagonal, cross = h_alpha.reshape(units, k), h_cross.reshape(units, k)
     for j in range(k):
         hessian[:, j, j] = diagonal[:, j]
         hessian[:, j, k] = cross[:, j]
         hessian[:, k, j] = cross[:, j]
-    hessian[:, k, k] = per_unit(u * u * second) - problem.detected / beta**2
+    hessian[:, k, k] = h_beta_cell.reshape(units, k).sum(axis=1) - problem.detected / beta**2
     return gradient, hessian
 
 
@@ -396,17 +417,26 @@ def _solve(
 ) -> tuple[FloatArray, FloatArray, BoolArray, IntArray]:
     """Maximise from alpha = 0, beta = 1 (the standardised start): optimum (units, k + 1),
     its covariance (units, k + 1, k + 1), convergence flags and iterations."""
-    unit = cell // k
-    censored_at = np.flatnonzero(kind != _DETECTED)
+    cells = n_units * k
+    detected = kind == _DETECTED
+    censored = ~detected
+    c_cell, c_u, c_kind = cell[censored], u[censored], kind[censored]
+    order = np.lexsort((c_u, c_kind, c_cell))
+    c_cell, c_u, c_kind = c_cell[order], c_u[order], c_kind[order]
+    new = np.ones(c_cell.size, dtype=bool)
+    new[1:] = (np.diff(c_cell) != 0) | (np.diff(c_kind) != 0) | (np.diff(c_u) != 0)
+    first = np.flatnonzero(new)
+    counts = np.diff(np.append(first, c_cell.size))
     problem = _Problem(
-        u=u,
-        cell=cell,
-        unit=unit,
-        censored_at=censored_at,
-        sign=np.where(kind[censored_at] == _LEFT, 1.0, -1.0),
+        cell=c_cell[first],
+        u=c_u[first],
+        sign=np.where(c_kind[first] == _LEFT, 1.0, -1.0),
+        weight=counts.astype(np.float64),
         n_units=n_units,
         k=k,
-        detected=np.bincount(unit[kind == _DETECTED], minlength=n_units).astype(np.float64),
+        count=np.bincount(cell[detected], minlength=cells).astype(np.float64),
+        s1=_sum_by(cell[detected], u[detected], cells),
+        s2=_sum_by(cell[detected], u[detected] ** 2, cells),
     )
     start = np.zeros((n_units, k + 1))
     start[:, k] = 1.0

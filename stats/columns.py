@@ -19,7 +19,7 @@ from typing import Literal, TypedDict, get_args, get_origin, get_type_hints
 
 import polars as pl
 
-from .vocabulary import BandClass, Decision, Test, WarningName
+from .vocabulary import BandClass, Decision, Method, Test, WarningName
 
 Side = Literal["a", "b"]
 
@@ -53,6 +53,7 @@ class ComparisonRow(TypedDict):
     df: float | None
     t: float | None
     test: Test
+    method: Method  # what the numbers rest on: the t-test on logs, censored ML, a substitution
     confidence: float
     band_class: BandClass | None
     p_tost: float | None
@@ -77,6 +78,22 @@ class ComparisonRow(TypedDict):
     n_estimated_b: int
     censored_share_a: float | None
     censored_share_b: float | None
+    n_left_a: int  # below-detection entries fitted at their limits (censored ML)
+    n_left_b: int
+    n_right_a: int  # above-range entries fitted as above their stated number (censored ML)
+    n_right_b: int
+    fit_reason_a: str | None  # why a group's censored fit was not made (None when it was)
+    fit_reason_b: str | None
+    limit_low_a: float | None  # range of the group's detection limits (of censored entries)
+    limit_low_b: float | None
+    limit_high_a: float | None
+    limit_high_b: float | None
+    median_at_most_a: float | None  # "< this" when the Kaplan-Meier median is undefined
+    median_at_most_b: float | None
+    half_dl_ratio: float | None  # the DL/2 substitution answer beside a censored-ML one
+    half_dl_ci_low: float | None
+    half_dl_ci_high: float | None
+    half_dl_band_class: BandClass | None
     mean_log_difference: float | None
     se_log: float | None
     sd_log_a: float | None
@@ -104,6 +121,7 @@ class CrossCheckColumns(TypedDict):
     hl_ci_low: float | None
     hl_ci_high: float | None
     mann_whitney_p: float | None
+    peto_prentice_p: float | None  # censored comparisons only (generalized Wilcoxon)
 
 
 class ReviewColumns(TypedDict):

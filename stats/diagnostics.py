@@ -28,6 +28,9 @@ SHAPIRO_RANGE = (3, 5000)
 SPREAD_RATIO = 1.5
 SPREAD_ALPHA = 0.05
 MEDIAN_GM_Z = 1.96
+#: Median detection limits of two groups further apart than this factor bias a substituted
+#: comparison (our rule; see ``WARNINGS["limits-differ"]``).
+LIMITS_FACTOR = 2.0
 
 #: Warning name -> one-line explanation, in the order they are listed.
 WARNINGS: dict[WarningName, str] = {
@@ -35,8 +38,9 @@ WARNINGS: dict[WarningName, str] = {
     "no-spread": "all values are equal in both groups: the t-test is undefined",
     "small-n": f"a group has fewer than {SMALL_N} usable values: checks have little power",
     "censored-share": (
-        f"over {CENSORED_SHARE:.0%} of a group is below detection; simple substitution is "
-        "trusted only below that share (a common rule of thumb)"
+        f"over {CENSORED_SHARE:.0%} of a group is below detection: substitution (DL/2) is "
+        "trusted only below that share (a common rule of thumb), and a censored fit leans "
+        "on the lognormal shape for the part it cannot see"
     ),
     "excluded-share": (
         f"over {EXCLUDED_SHARE:.0%} of a group's entries were left out (zero, negative or "
@@ -68,6 +72,20 @@ WARNINGS: dict[WarningName, str] = {
     "units-apart": (
         "this analyte was also reported in a unit that does not convert into this one; those "
         "results are a separate outcome"
+    ),
+    "not-fitted": (
+        "a group's censored fit was not made (fewer than 2 detected values, detected values "
+        "all equal, or more than 80% below detection): no ratio is given"
+    ),
+    "censoring-sensitive": (
+        "substituting DL/2 for the below-detection entries would change the finding (whether "
+        "the CI excludes 1, or the equivalence class): the answer depends on how they are "
+        "treated"
+    ),
+    "limits-differ": (
+        f"the groups' detection limits differ by more than {LIMITS_FACTOR:g}x (medians of "
+        "their limits), or one group has detected values below half the other's limits: a "
+        "substituted comparison would be biased, the censored fit is not"
     ),
 }
 
@@ -168,12 +186,29 @@ def warning_expression() -> pl.Expr:
         "no-limit": _either_above_zero("n_no_limit"),
         "above-range": _either_above_zero("n_above_range"),
         "units-apart": pl.col("units_apart"),
+        "not-fitted": pl.col(side("fit_reason", "a")).is_not_null()
+        | pl.col(side("fit_reason", "b")).is_not_null(),
+        "censoring-sensitive": pl.col("censoring_sensitive"),
+        "limits-differ": _limits_differ(),
     }
     parts = [
         pl.when(condition.fill_null(False)).then(pl.lit(name))
         for name, condition in conditions.items()
     ]
     return pl.concat_list(parts).list.drop_nulls().cast(pl.List(pl.Enum(list(WARNING_NAMES))))
+
+
+def _limits_differ() -> pl.Expr:
+    """Both groups have limits whose medians differ by more than ``LIMITS_FACTOR``; or only one
+    has limits and the other has detected values below half of that group's median limit
+    (the other group was measured more sensitively)."""
+    limit_a, limit_b = pl.col(side("limit_median", "a")), pl.col(side("limit_median", "b"))
+    low_a, low_b = pl.col(side("detected_min", "a")), pl.col(side("detected_min", "b"))
+    ratio = pl.max_horizontal(limit_a, limit_b) / pl.min_horizontal(limit_a, limit_b)
+    both = limit_a.is_not_null() & limit_b.is_not_null() & (ratio > LIMITS_FACTOR)
+    only_a = limit_b.is_null() & (low_b < limit_a / LIMITS_FACTOR)
+    only_b = limit_a.is_null() & (low_a < limit_b / LIMITS_FACTOR)
+    return both | only_a | only_b
 
 
 def _either_above_zero(name: str) -> pl.Expr:

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import polars as pl
 
+from .entries import ABOVE
 from .load import DerivedNames
 from .vocabulary import (
     CENSORED_POLICIES,
@@ -28,7 +29,7 @@ class ValuePolicy:
     """How non-positive and censored entries reach the log scale."""
 
     nonpositive: NonpositivePolicy = "exclude"
-    censored: CensoredPolicy = "exclude"
+    censored: CensoredPolicy = "mle"
 
     def __post_init__(self) -> None:
         # Literal types are checked by mypy; this catches values built at run time.
@@ -37,6 +38,7 @@ class ValuePolicy:
 
     def describe(self) -> str:
         words = {
+            "mle": "fitted by censored maximum likelihood",
             "exclude": "left out",
             "half-min": "replaced by half the smallest positive value",
             "half-dl": "replaced by half the detection limit",
@@ -55,13 +57,20 @@ def apply_policy(
     (``names.used``, ``names.excluded``, ``names.substituted``).
 
     The used value is the strictly positive value that goes to the log scale (null when the
-    entry is missing or left out). Missing entries count as neither excluded nor
-    substituted.
+    entry is missing, left out, or fitted as censored). Under ``mle`` a below-detection entry
+    with a positive limit and an entry above the measuring range are neither used as numbers
+    nor excluded: the censored fit (``censored_groups``) takes them at their limits. Missing
+    entries count as neither excluded nor substituted.
     """
     exprs: list[pl.Expr] = []
     for name in outcomes:
         value = pl.col(name)
         censored = pl.col(names.censored(name))
+        above = (
+            pl.col(names.kind(name)) == ABOVE
+            if policy.censored == "mle" and names.kind(name) in frame.columns
+            else pl.lit(False)
+        )
         plain = value.is_not_null() & ~censored
         nonpositive = plain & (value <= 0)
         smallest_positive = value.filter(plain & (value > 0)).min()
@@ -81,6 +90,8 @@ def apply_policy(
             .then(censored_value)
             .when(censored)
             .then(None)
+            .when(above & (value > 0))
+            .then(None)
             .when(nonpositive)
             .then(nonpositive_value)
             .otherwise(value)
@@ -88,7 +99,7 @@ def apply_policy(
         excluded = (censored & ((policy.censored == "exclude") | (value <= 0))) | (
             nonpositive & (policy.nonpositive == "exclude")
         )
-        substituted = (censored_usable & (policy.censored != "exclude")) | (
+        substituted = (censored_usable & (policy.censored not in ("exclude", "mle"))) | (
             nonpositive & (policy.nonpositive != "exclude")
         )
         exprs += [

@@ -11,12 +11,18 @@ order statistics of those differences at the normal-approximation critical value
 Mann–Whitney statistic (Hollander, Wolfe & Chicken, Nonparametric Statistical Methods,
 3rd ed., sec. 4.3).
 
+Censored comparisons: the bootstrap, Hodges–Lehmann and Mann–Whitney use the detected values
+only (they cannot place an entry below its limit); the Peto–Prentice generalized Wilcoxon
+test (``peto.peto_prentice``) uses the detected values and the limits, and is added for
+every comparison in which a group has below-detection entries.
+
 ``CrossChecker`` is the one place that runs cross-checks for many comparisons: it draws
 each group's bootstrap medians once, from a generator seeded by the group's identity.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import hashlib
 import math
@@ -32,6 +38,7 @@ from scipy import stats as sps
 from scipy.special import gammaln
 
 from .columns import CROSS_CHECK_SCHEMA, ComparisonRow, Side, comparison_row
+from .peto import peto_prentice
 from .values import GroupId
 
 if TYPE_CHECKING:
@@ -42,6 +49,8 @@ DEFAULT_SEED = 20261201
 _BRUTE_FORCE_PAIRS = 4_000_000
 
 FloatArray = npt.NDArray[np.float64]
+#: A group's entries: values (limits where censored), below a limit, above the range.
+Entries = tuple[FloatArray, npt.NDArray[np.bool_], npt.NDArray[np.bool_]]
 
 
 @dataclass(frozen=True)
@@ -56,6 +65,9 @@ class RobustCheck:
     hl_ci_high: float
     mann_whitney_p: float
     reason: str = ""
+    #: Peto–Prentice generalized Wilcoxon p on detected values and limits (censored
+    #: comparisons only; NaN otherwise).
+    peto_prentice_p: float = math.nan
 
 
 NAN_CHECK = RobustCheck(
@@ -360,6 +372,7 @@ def _column_values(check: RobustCheck) -> tuple[float, ...]:
         check.hl_ci_low,
         check.hl_ci_high,
         check.mann_whitney_p,
+        check.peto_prentice_p,
     )
 
 
@@ -395,8 +408,10 @@ class CrossChecker:
         confidence: float = 0.95,
         resamples: int = DEFAULT_RESAMPLES,
         seed: int = DEFAULT_SEED,
+        entries: Callable[[GroupId], Entries | None] | None = None,
     ) -> None:
         self._lookup = lookup
+        self._entries = entries
         self.confidence = confidence
         self.resamples = resamples
         self.seed = seed
@@ -421,7 +436,7 @@ class CrossChecker:
         """Cross-checks of group b against group a (the reference, the denominator)."""
         values_a, replicates_a = self._group(a)
         values_b, replicates_b = self._group(b)
-        return robust_check(
+        check = robust_check(
             values_a,
             values_b,
             confidence=self.confidence,
@@ -430,6 +445,18 @@ class CrossChecker:
             replicates_a=replicates_a,
             replicates_b=replicates_b,
         )
+        p = self._peto_prentice(a, b)
+        return check if math.isnan(p) else dataclasses.replace(check, peto_prentice_p=p)
+
+    def _peto_prentice(self, a: GroupId, b: GroupId) -> float:
+        """The Peto–Prentice p where either group has below-detection entries: detected
+        values and limits, above-range entries taken at their stated number."""
+        if self._entries is None:
+            return math.nan
+        got_a, got_b = self._entries(a), self._entries(b)
+        if got_a is None or got_b is None or not (got_a[1].any() or got_b[1].any()):
+            return math.nan
+        return peto_prentice(got_a[0], got_a[1], got_b[0], got_b[1]).p_value
 
     def check_many(
         self,
@@ -494,6 +521,7 @@ def robust_all(
         confidence=result.settings.confidence,
         resamples=resamples,
         seed=seed,
+        entries=result.entries.entries if result.entries is not None else None,
     )
     jobs = check_jobs(comparisons)
     checks = checker.check_many(jobs, progress=progress, cancelled=cancelled)

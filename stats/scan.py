@@ -11,16 +11,19 @@ from typing import Any, Literal
 import numpy as np
 import numpy.typing as npt
 import polars as pl
+from scipy import stats as sps
 
 from . import diagnostics, equivalence, precision
+from .censored import CensoredComparison
+from .censored_groups import SUMMARY_EXTRA, GroupEntries, merge_censored
 from .columns import COMPARISON_SCHEMA, key_expression, side
 from .load import InputError, Table
 from .multiplicity import adjust
 from .policy import ValuePolicy, apply_policy
 from .summaries import group_summaries, level_order
 from .ttest import LogTTest, log_t_test
-from .values import GroupSpec, GroupValues, group_specs
-from .vocabulary import FAMILIES, PAIRS, TESTS, Family, Pairs, Test, choose
+from .values import GroupId, GroupSpec, GroupValues, group_specs
+from .vocabulary import FAMILIES, METHODS, PAIRS, TESTS, Family, Method, Pairs, Test, choose
 
 Array = npt.NDArray[np.float64]
 
@@ -129,6 +132,9 @@ class ScanResult:
     settings: ScanSettings
     source: DataSource
     values: GroupValues | None
+    #: Detected values, limits and above-range entries of the groups of outcomes with
+    #: censored entries (None for a summary table).
+    entries: GroupEntries | None = None
 
     def metadata(self) -> dict[str, Any]:
         return {
@@ -301,6 +307,7 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
     check_comparison_count(_level_sets(table, specs), len(table.outcomes), settings, table.name)
     used = apply_policy(table.frame, table.outcomes, settings.policy, table.names)
     values = GroupValues(used, specs, table.outcomes, table.names)
+    entries = GroupEntries(used, specs, table.outcomes, table.names, settings.policy)
     summaries = group_summaries(used, specs, table.outcomes, table.names)
     normality = diagnostics.group_normality(values)
     summaries = summaries.join(
@@ -309,8 +316,14 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         how="left",
         nulls_equal=True,
     )
+    summaries = merge_censored(summaries, entries.figures(), settings.policy)
     comparisons = compare_summaries(
-        complete_summaries(summaries), settings, table.outcomes, table.units, table.units_apart
+        complete_summaries(summaries),
+        settings,
+        table.outcomes,
+        table.units,
+        table.units_apart,
+        entries=entries,
     )
     source = DataSource(
         path=table.path,
@@ -321,17 +334,35 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         unparsed=dict(table.unparsed),
         notes=table.notes,
     )
-    return ScanResult(comparisons, summaries, settings, source, values)
+    return ScanResult(comparisons, summaries, settings, source, values, entries)
 
 
 def complete_summaries(summaries: pl.DataFrame) -> pl.DataFrame:
-    """Add the derived per-group figures: geometric mean, log SD, censored share."""
-    return summaries.with_columns(
-        gm=pl.col("mean_log").exp(),
-        sd_log=(pl.col("ss_log") / (pl.col("n") - 1)).sqrt(),
-        censored_share=pl.col("n_censored") / (pl.col("n") + pl.col("n_excluded")).cast(pl.Float64),
-    ).with_columns(
-        sd_log=pl.when(pl.col("n") >= 2).then(pl.col("sd_log")).otherwise(None),
+    """Add the derived per-group figures: geometric mean, log SD, the variance of the mean of
+    the logs the comparison uses, censored share; the censored columns (``SUMMARY_EXTRA``)
+    stay null where no censored fit applies."""
+    missing = [
+        pl.lit(0 if name in ("n_left", "n_right") else None, dtype).alias(name)
+        for name, dtype in SUMMARY_EXTRA.items()
+        if name not in summaries.columns
+    ]
+    plain_sd = (pl.col("ss_log") / (pl.col("n") - 1)).sqrt()
+    return (
+        summaries.with_columns(missing)
+        .with_columns(
+            gm=pl.col("mean_log").exp(),
+            sd_log=pl.coalesce(pl.col("fit_sd_log"), plain_sd),
+            censored_share=pl.col("n_censored")
+            / (pl.col("n") + pl.col("n_excluded")).cast(pl.Float64),
+        )
+        .with_columns(
+            sd_log=pl.when(pl.col("n") >= 2).then(pl.col("sd_log")).otherwise(None),
+        )
+        .with_columns(
+            var_mean_log=pl.coalesce(
+                pl.col("fit_var_mean_log"), pl.col("sd_log").pow(2) / pl.col("n")
+            ),
+        )
     )
 
 
@@ -375,7 +406,7 @@ def _figures(frame: pl.DataFrame, test: LogTTest, settings: ScanSettings) -> dic
     )
     sd_a, sd_b = column("sd_log_a"), column("sd_log_b")
     with np.errstate(divide="ignore", invalid="ignore"):
-        pooled_sd = np.sqrt((column("ss_log_a") + column("ss_log_b")) / (n_a + n_b - 2))
+        pooled_sd = np.sqrt(((n_a - 1) * sd_a**2 + (n_b - 1) * sd_b**2) / (n_a + n_b - 2))
         median_ratio = column("median_b") / column("median_a")
         sd_log_ratio = sd_b / sd_a
     n_needed = (
@@ -411,32 +442,158 @@ def _figures(frame: pl.DataFrame, test: LogTTest, settings: ScanSettings) -> dic
     }
 
 
+def _pair_groups(frame: pl.DataFrame) -> list[tuple[GroupId, GroupId]]:
+    rows = frame.select(*_SET, "level_a", "level_b", "outcome").rows()
+    return [((g, w, st, a, o), (g, w, st, b, o)) for g, w, st, a, b, o in rows]
+
+
+def _censored_rows(frame: pl.DataFrame) -> npt.NDArray[np.bool_]:
+    censored: npt.NDArray[np.bool_] = (
+        frame.select(
+            (pl.col("n_left_a") + pl.col("n_right_a") + pl.col("n_left_b") + pl.col("n_right_b"))
+            > 0
+        )
+        .to_series()
+        .to_numpy()
+    )
+    return censored
+
+
+def _log_test(
+    frame: pl.DataFrame,
+    settings: ScanSettings,
+    entries: GroupEntries | None,
+    prefix: str = "",
+) -> LogTTest:
+    """The t-test on the logs of every comparison; under ``mle`` censored groups enter with
+    their fitted mean and the variance of it (Welch), or through the joint common-SD fit of
+    the comparison (pooled). ``prefix`` "half_dl_" takes the DL/2 figures instead."""
+
+    def column(name: str) -> Array:
+        values: Array = frame[name].cast(pl.Float64).fill_null(np.nan).to_numpy()
+        return values
+
+    def figure(name: str, which: Literal["a", "b"]) -> Array:
+        plain = column(side(name, which))
+        if not prefix:
+            return plain
+        other = column(side(prefix + name, which))
+        chosen: Array = np.where(np.isfinite(other), other, plain)
+        return chosen
+
+    test = log_t_test(
+        figure("n", "a"),
+        figure("mean_log", "a"),
+        figure("ss_log", "a"),
+        figure("n", "b"),
+        figure("mean_log", "b"),
+        figure("ss_log", "b"),
+        test=settings.test,
+        confidence=settings.confidence,
+        var_mean_a=None if prefix else column("fit_var_mean_log_a"),
+        var_mean_b=None if prefix else column("fit_var_mean_log_b"),
+    )
+    if prefix or settings.test != "pooled" or settings.policy.censored != "mle":
+        return test
+    rows = np.flatnonzero(_censored_rows(frame))
+    if rows.size == 0:
+        return test
+    if entries is None:
+        raise InputError(
+            "--test pooled with censored fits needs the raw values (the common-SD fit of "
+            "each comparison); use --test welch with a summary table"
+        )
+    pairs = _pair_groups(frame)
+    joint = entries.pooled([pairs[i] for i in rows], settings.confidence)
+    return _with_rows(test, rows, joint, settings.confidence)
+
+
+def _with_rows(
+    test: LogTTest, rows: npt.NDArray[np.intp], joint: CensoredComparison, confidence: float
+) -> LogTTest:
+    """``test`` with the rows at ``rows`` replaced by the censored comparisons."""
+    fields = {
+        "difference": joint.d,
+        "standard_error": joint.se,
+        "df": joint.df,
+        "ci_low": joint.ci_low,
+        "ci_high": joint.ci_high,
+        "p_value": joint.p,
+    }
+    replaced = {}
+    for name, values in fields.items():
+        column = np.array(getattr(test, name), dtype=float, copy=True)
+        column[rows] = values
+        replaced[name] = column
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = replaced["difference"] / replaced["standard_error"]
+        t_critical = sps.t.ppf(0.5 + confidence / 2, replaced["df"])
+    return LogTTest(t=t, t_critical=t_critical, **replaced)
+
+
+def _method_expression(policy: ValuePolicy) -> pl.Expr:
+    """What each comparison's numbers rest on (``vocabulary.METHODS``)."""
+    fitted = (
+        pl.col("n_left_a") + pl.col("n_right_a") + pl.col("n_left_b") + pl.col("n_right_b")
+    ) > 0
+    censored = (pl.col("n_censored_a") + pl.col("n_censored_b")) > 0
+    other: dict[str, Method] = {
+        "mle": "nondetects left out",
+        "exclude": "nondetects left out",
+        "half-dl": "DL/2 substituted",
+        "dl-root2": "DL/sqrt2 substituted",
+    }
+    by_policy = (
+        pl.when(fitted & pl.lit(policy.censored == "mle"))
+        .then(pl.lit("censored ML"))
+        .when(censored)
+        .then(pl.lit(other[policy.censored]))
+        .otherwise(pl.lit("t-test on logs"))
+    )
+    return by_policy.cast(pl.Enum(list(METHODS)))
+
+
+def _sensitivity(
+    frame: pl.DataFrame, settings: ScanSettings, figures: dict[str, Array]
+) -> dict[str, Array]:
+    """The DL/2 answer of every censored-ML comparison (NaN elsewhere) and whether it tells
+    a different story: the CI excludes 1 in one answer only, or the band class differs."""
+    half = _log_test(frame, settings, None, prefix="half_dl_")
+    low, high = half.ratio_ci
+    _, tost_low, tost_high = equivalence.tost(
+        half.difference, half.standard_error, half.df, settings.band, alpha=0.05
+    )
+    half_class = equivalence.band_class(low, high, tost_low, tost_high, settings.band)
+    censored = _censored_rows(frame) & (settings.policy.censored == "mle")
+    with np.errstate(invalid="ignore"):
+        excludes_ml = (figures["ci_low"] > 1) | (figures["ci_high"] < 1)
+        excludes_half = (low > 1) | (high < 1)
+    known = np.isfinite(half.difference) & np.isfinite(figures["ratio"])
+    differs = known & ((excludes_ml != excludes_half) | (half_class != figures["band_class"]))
+    return {
+        "half_dl_ratio": np.where(censored, half.ratio, np.nan),
+        "half_dl_ci_low": np.where(censored, low, np.nan),
+        "half_dl_ci_high": np.where(censored, high, np.nan),
+        "censoring_sensitive": censored & differs,
+        "half_dl_band_class": np.where(censored, half_class, ""),
+    }
+
+
 def compare_summaries(
     summaries: pl.DataFrame,
     settings: ScanSettings,
     outcomes: tuple[str, ...],
     units: Mapping[str, str] | None = None,
     units_apart: Sequence[str] = (),
+    *,
+    entries: GroupEntries | None = None,
 ) -> pl.DataFrame:
     """Every comparison from per-group summaries (one row per grouping × stratum × level ×
-    outcome): the part of the scan that needs no raw values. Returns a frame with exactly
-    ``columns.COMPARISON_SCHEMA``."""
+    outcome): the part of the scan that needs no raw values, except the common-SD fits of
+    censored comparisons under ``--test pooled`` (from ``entries``). Returns a frame with
+    exactly ``columns.COMPARISON_SCHEMA``."""
     frame = _join_sides(summaries, settings, outcomes)
-
-    def column(name: str) -> Array:
-        values: Array = frame[name].cast(pl.Float64).fill_null(np.nan).to_numpy()
-        return values
-
-    test = log_t_test(
-        column("n_a"),
-        column("mean_log_a"),
-        column("ss_log_a"),
-        column("n_b"),
-        column("mean_log_b"),
-        column("ss_log_b"),
-        test=settings.test,
-        confidence=settings.confidence,
-    )
+    test = _log_test(frame, settings, entries)
     figures = _figures(frame, test, settings)
     classes = equivalence.band_class(
         figures["ci_low"],
@@ -445,12 +602,21 @@ def compare_summaries(
         figures["tost_ci_high"],
         settings.band,
     )
+    sensitivity = _sensitivity(frame, settings, {**figures, "band_class": classes})
+    sensitive = sensitivity.pop("censoring_sensitive")
+    half_class = sensitivity.pop("half_dl_band_class")
     frame = frame.with_columns(
-        [pl.Series(name, values, dtype=pl.Float64) for name, values in figures.items()]
+        [
+            pl.Series(name, values, dtype=pl.Float64)
+            for name, values in {**figures, **sensitivity}.items()
+        ]
     ).with_columns(
         pl.col(pl.Float64).fill_nan(None),
         pl.Series("band_class", classes, dtype=pl.String).replace("", None),
+        pl.Series("censoring_sensitive", sensitive, dtype=pl.Boolean),
+        pl.Series("half_dl_band_class", half_class, dtype=pl.String).replace("", None),
         pl.lit(settings.test).alias("test"),
+        _method_expression(settings.policy).alias("method"),
         pl.col("outcome")
         .replace_strict(dict(units or {}), default=None, return_dtype=pl.String)
         .alias("unit"),

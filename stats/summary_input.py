@@ -6,15 +6,29 @@ Required columns: ``grouping, level, outcome, n, mean_log`` and one of ``sd_log`
 Optional: ``median`` and the counts ``n_missing, n_excluded, n_substituted, n_censored``.
 Medians, Shapiro–Wilk, skewness, histograms and the robust cross-checks need raw values,
 so they stay empty.
+
+Censored fits (under the default ``--censored mle``): a row with ``n_censored`` > 0 is the
+censored maximum-likelihood fit of its group: ``n`` counts every entry (detected and below
+detection), ``mean_log`` and ``sd_log`` are the fit's estimates of the mean and SD of the
+logs, and the optional ``se_mean_log`` is the fit's standard error of ``mean_log`` (used as
+given). Without it the variance of ``mean_log`` is the expected-information value for one
+detection limit at the row's censored share (``censored_information``), times n / (n - 1)
+as for raw data. The fit rules of raw data apply: fewer than 2 detected entries or more
+than 80% censored gives no ratio and the ``not-fitted`` warning. Under another policy
+``n_censored`` only counts entries that ``n`` does not hold.
 """
 
 from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import polars as pl
 
+from .censored import MAX_CENSORED_SHARE, MIN_DETECTED, TOO_CENSORED, TOO_FEW_DETECTED
+from .censored_information import variance_of_mean_log
 from .load import InputError, read_raw, read_source
+from .policy import ValuePolicy
 from .scan import DataSource, ScanResult, ScanSettings, compare_summaries, complete_summaries
 from .summaries import SUMMARY_SCHEMA
 
@@ -46,7 +60,7 @@ def _spread_column(raw: pl.DataFrame, path: Path) -> str:
 
 def _typed(raw: pl.DataFrame, spread: str, path: Path) -> pl.DataFrame:
     """Names as trimmed text and figures as numbers; refuses entries that are not numbers."""
-    numbers = ["n", "mean_log", spread, "median", *OPTIONAL_COUNTS]
+    numbers = ["n", "mean_log", spread, "median", "se_mean_log", *OPTIONAL_COUNTS]
     typed = raw.with_columns(
         [pl.col(name).cast(pl.Utf8).str.strip_chars() for name in ("grouping", "level", "outcome")]
         + [
@@ -79,9 +93,12 @@ def _optional(typed: pl.DataFrame, name: str, dtype: pl.DataType) -> pl.Expr:
     return pl.lit(0 if dtype == pl.Int64 else None, dtype).alias(name)
 
 
-def read_summary_table(path: Path | str, raw: pl.DataFrame | None = None) -> pl.DataFrame:
+def read_summary_table(
+    path: Path | str, raw: pl.DataFrame | None = None, policy: ValuePolicy | None = None
+) -> pl.DataFrame:
     """Read (unless ``raw`` is the file already read) and check a summary table; return it
-    in the scan's summary layout."""
+    in the scan's summary layout (with the censored-fit columns under ``mle``)."""
+    policy = policy or ValuePolicy()
     path = Path(path)
     raw = read_raw(path) if raw is None else raw
     raw = raw.rename({name: name.strip().lower() for name in raw.columns})
@@ -111,7 +128,47 @@ def read_summary_table(path: Path | str, raw: pl.DataFrame | None = None) -> pl.
         nothing.alias("shapiro_p"),
     )
     ordered = [*SUMMARY_SCHEMA, "shapiro_w", "shapiro_p"]
-    return summaries.select(ordered).cast(SUMMARY_SCHEMA)
+    summaries = summaries.select(ordered).cast(SUMMARY_SCHEMA)
+    if policy.censored != "mle" or "n_censored" not in typed.columns:
+        return summaries
+    return _censored_fits(summaries, typed, spread)
+
+
+def _censored_fits(summaries: pl.DataFrame, typed: pl.DataFrame, spread: str) -> pl.DataFrame:
+    """Rows with censored entries as censored fits: their SD, the variance of their mean
+    (given, or from the expected information) and the reason a row is not fitted."""
+    n = typed["n"].to_numpy().astype(float)
+    censored = typed["n_censored"].fill_null(0).to_numpy().astype(float)
+    values = typed[spread].to_numpy().astype(float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sd = {"sd_log": values, "var_log": np.sqrt(values), "ss_log": np.sqrt(values / (n - 1))}[
+            spread
+        ]
+        approximate = variance_of_mean_log(n, censored, sd) * n / (n - 1)
+    if "se_mean_log" in typed.columns:
+        given = typed["se_mean_log"].to_numpy().astype(float) ** 2
+        variance = np.where(np.isfinite(given), given, approximate)
+    else:
+        variance = approximate
+    fitted = censored > 0
+    reason = np.full(n.size, None, dtype=object)
+    reason[fitted & (n - censored < MIN_DETECTED)] = TOO_FEW_DETECTED
+    reason[fitted & (n - censored >= MIN_DETECTED) & (censored > MAX_CENSORED_SHARE * n)] = (
+        TOO_CENSORED
+    )
+    usable = fitted & (reason == None)  # noqa: E711 (element-wise on an object array)
+    return summaries.with_columns(
+        pl.Series("n_left", np.where(fitted, censored, 0).astype(np.int64)),
+        pl.Series("n_right", np.zeros(n.size, dtype=np.int64)),
+        pl.Series("fit_sd_log", np.where(usable, sd, np.nan)).fill_nan(None),
+        pl.Series("fit_var_mean_log", np.where(usable, variance, np.nan)).fill_nan(None),
+        pl.Series("fit_reason", reason, dtype=pl.Utf8),
+        pl.when(pl.Series(fitted)).then(None).otherwise(pl.col("ss_log")).alias("ss_log"),
+        pl.when(pl.Series(fitted & ~usable))
+        .then(None)
+        .otherwise(pl.col("mean_log"))
+        .alias("mean_log"),
+    )
 
 
 def scan_summary_table(path: Path | str, settings: ScanSettings | None = None) -> ScanResult:
@@ -122,7 +179,7 @@ def scan_summary_table(path: Path | str, settings: ScanSettings | None = None) -
     if settings.within is not None:
         raise InputError(f"{path}: --within needs raw values; it cannot use a summary table")
     read = read_source(path)  # read once: the fingerprint is of the bytes parsed
-    summaries = complete_summaries(read_summary_table(path, read.frame))
+    summaries = complete_summaries(read_summary_table(path, read.frame, settings.policy))
     outcomes = tuple(dict.fromkeys(summaries["outcome"].to_list()))
     comparisons = compare_summaries(summaries, settings, outcomes)
     source = DataSource(

@@ -49,28 +49,32 @@ def log_t_test(
     *,
     test: Test = "welch",
     confidence: float = 0.95,
+    var_mean_a: np.ndarray | None = None,
+    var_mean_b: np.ndarray | None = None,
 ) -> LogTTest:
     """Welch or pooled t-test of mean(log b) - mean(log a) from counts, means and sums of
     squared deviations of the logs. Rows with fewer than 2 values in a group, or with no
-    spread at all, give NaN."""
+    spread at all, give NaN.
+
+    ``var_mean_a``, ``var_mean_b`` (Welch only): where finite, the variance of that group's
+    mean of the logs to use instead of s^2 / n, e.g. from a censored fit
+    (``censored.compare_censored`` documents the rule); the df is then the
+    Welch–Satterthwaite df of those variances with n - 1 per group."""
     if test not in TESTS:
         raise ValueError(f"unknown test {test!r}; choose welch or pooled")
     if not 0 < confidence < 1:
         raise ValueError(f"confidence must be between 0 and 1, got {confidence}")
-    n_a = np.asarray(n_a, dtype=float)
-    n_b = np.asarray(n_b, dtype=float)
-    mean_a = np.asarray(mean_a, dtype=float)
-    mean_b = np.asarray(mean_b, dtype=float)
-    ss_a = np.asarray(ss_a, dtype=float)
-    ss_b = np.asarray(ss_b, dtype=float)
+    n_a, n_b, mean_a, mean_b, ss_a, ss_b = (
+        np.asarray(x, dtype=float) for x in (n_a, n_b, mean_a, mean_b, ss_a, ss_b)
+    )
     usable = (n_a >= 2) & (n_b >= 2)
     with np.errstate(divide="ignore", invalid="ignore"):
         var_a = np.where(usable, ss_a / (n_a - 1), np.nan)
         var_b = np.where(usable, ss_b / (n_b - 1), np.nan)
         difference = np.where(usable, mean_b - mean_a, np.nan)
         if test == "welch":
-            share_a = var_a / n_a
-            share_b = var_b / n_b
+            share_a = _override(var_a / n_a, var_mean_a, usable)
+            share_b = _override(var_b / n_b, var_mean_b, usable)
             se2 = share_a + share_b
             df = se2**2 / (share_a**2 / (n_a - 1) + share_b**2 / (n_b - 1))
         else:
@@ -95,3 +99,11 @@ def log_t_test(
         ci_low=difference - t_critical * se,
         ci_high=difference + t_critical * se,
     )
+
+
+def _override(share: np.ndarray, given: np.ndarray | None, usable: np.ndarray) -> np.ndarray:
+    if given is None:
+        return share
+    given = np.asarray(given, dtype=float)
+    chosen: np.ndarray = np.where(usable & np.isfinite(given), given, share)
+    return chosen

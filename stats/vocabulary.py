@@ -18,8 +18,17 @@ Test = Literal["welch", "pooled"]
 Family = Literal["scan", "outcome", "grouping"]
 #: Zero or negative values: leave them out, or put half the smallest positive value instead.
 NonpositivePolicy = Literal["exclude", "half-min"]
-#: Entries like ``<0.5``: leave them out, or put DL/2 or DL/sqrt(2) instead.
-CensoredPolicy = Literal["exclude", "half-dl", "dl-root2"]
+#: Entries like ``<0.5``: fit them by censored maximum likelihood (the default), leave them
+#: out, or put DL/2 or DL/sqrt(2) instead.
+CensoredPolicy = Literal["mle", "exclude", "half-dl", "dl-root2"]
+#: How a comparison's numbers were computed (the ``method`` column).
+Method = Literal[
+    "t-test on logs",
+    "censored ML",
+    "nondetects left out",
+    "DL/2 substituted",
+    "DL/sqrt2 substituted",
+]
 #: A reviewer's decision on a finding (no decision is ``None``, never an empty string).
 Decision = Literal["keep", "doubt", "drop"]
 #: Where a comparison falls against the ratio band of no practical difference.
@@ -38,6 +47,9 @@ WarningName = Literal[
     "no-limit",
     "above-range",
     "units-apart",
+    "not-fitted",
+    "censoring-sensitive",
+    "limits-differ",
 ]
 
 PAIRS: tuple[Pairs, ...] = get_args(Pairs)
@@ -45,6 +57,7 @@ TESTS: tuple[Test, ...] = get_args(Test)
 FAMILIES: tuple[Family, ...] = get_args(Family)
 NONPOSITIVE_POLICIES: tuple[NonpositivePolicy, ...] = get_args(NonpositivePolicy)
 CENSORED_POLICIES: tuple[CensoredPolicy, ...] = get_args(CensoredPolicy)
+METHODS: tuple[Method, ...] = get_args(Method)
 DECISIONS: tuple[Decision, ...] = get_args(Decision)
 BAND_CLASS_NAMES: tuple[BandClass, ...] = get_args(BandClass)
 WARNING_NAMES: tuple[WarningName, ...] = get_args(WarningName)

@@ -197,8 +197,12 @@ def _add_method_options(method: argparse._ArgumentGroup) -> None:
     method.add_argument(
         "--censored",
         choices=CENSORED_POLICIES,
-        default="exclude",
-        help="entries like <0.5: leave out (default), or replace by DL/2 (half-dl) or DL/sqrt(2) (dl-root2)",
+        default="mle",
+        help=(
+            "entries like <0.5: fit by censored maximum likelihood at their limits (mle, "
+            "default), leave out (exclude), or replace by DL/2 (half-dl) or DL/sqrt(2) "
+            "(dl-root2)"
+        ),
     )
     method.add_argument(
         "--family",

@@ -24,6 +24,15 @@ NUMERIC_FIELDS = {
     "change": "percent_change",
     "n": "n_min",  # the smaller group's n
     "fold": "ci_fold",
+    "below": "below_share",  # the larger group's below-detection share, in percent
+}
+#: ``method:WORD`` -> the method it picks (``stats.vocabulary.METHODS``).
+METHOD_WORDS = {
+    "logs": "t-test on logs",
+    "ml": "censored ML",
+    "left-out": "nondetects left out",
+    "dl2": "DL/2 substituted",
+    "dl-root2": "DL/sqrt2 substituted",
 }
 _CONDITION = re.compile(r"^(?P<field>[a-z]+)\s*(?P<op><=|>=|<|>|=)\s*(?P<value>[-+0-9.eE]+)$")
 _OPERATORS = {
@@ -42,8 +51,13 @@ Words, separated by spaces; a row is shown when all of them hold:
 - any plain word: text search in outcome, grouping, stratum and level names (case-insensitive)
 - `q<0.05`, `p<=0.01`, `holm<0.05`, `ratio>2`, `ratio<0.5`, `change>50`, `n>=10` (the smaller
   group), `fold<3` (the CI's upper/lower ratio): numeric conditions
+- `below>30`: the larger group's share below detection, in percent; `censored`: rows with
+  any below-detection entry
+- `method:ml` (censored maximum likelihood), `method:logs` (t-test on logs, nothing
+  censored), `method:left-out`, `method:dl2`, `method:dl-root2` (substitution)
 - `outside:0.8,1.25`: ratio outside the band; `inside:0.8,1.25`: inside it
-- `warned` (any warning), `clean` (none), `warn:log-skew` (that warning)
+- `warned` (any warning), `clean` (none), `warn:log-skew` (that warning), e.g.
+  `warn:censoring-sensitive`, `warn:limits-differ`, `warn:not-fitted`
 - `flagged`, `unflagged`, `undecided`, `keep` / `doubt` / `drop` (decision),
   `noted` (has a note), `earlier` (review made on an earlier version of the data)
 - `class:equivalent`, or the class name alone (`different`, `minor-difference`,
@@ -77,7 +91,14 @@ def _condition(word: str, match: re.Match[str]) -> pl.Expr:
         value = float(match["value"])
     except ValueError:
         raise FilterError(f"{word!r}: {match['value']!r} is not a number") from None
-    column = pl.min_horizontal(col.N_A, col.N_B) if field == "n" else pl.col(NUMERIC_FIELDS[field])
+    if field == "n":
+        column = pl.min_horizontal(col.N_A, col.N_B)
+    elif field == "below":
+        column = 100 * pl.max_horizontal(
+            col.side("censored_share", "a"), col.side("censored_share", "b")
+        )
+    else:
+        column = pl.col(NUMERIC_FIELDS[field])
     return _OPERATORS[match["op"]](column, value).fill_null(False)
 
 
@@ -95,6 +116,10 @@ def _prefixed(word: str, lowered: str) -> pl.Expr | None:
             # A misspelt name would otherwise match nothing and look like "no such warnings".
             raise FilterError(f"{word!r}: warnings are {', '.join(WARNINGS)}")
         return pl.col(col.WARNINGS).list.contains(pl.lit(text)).fill_null(False)
+    if kind == "method":
+        if text not in METHOD_WORDS:
+            raise FilterError(f"{word!r}: methods are {', '.join(METHOD_WORDS)}")
+        return (pl.col("method").cast(pl.String) == METHOD_WORDS[text]).fill_null(False)
     if kind == "class":
         if text not in BAND_CLASSES:
             raise FilterError(f"{word!r}: classes are {', '.join(BAND_CLASSES)}")
@@ -112,6 +137,7 @@ def _state(lowered: str) -> pl.Expr | None:
         "undecided": pl.col(col.DECISION).is_null(),
         "noted": pl.col(col.NOTE) != "",
         "earlier": pl.col(col.ON_EARLIER_DATA),
+        "censored": (pl.col(col.side("n_censored", "a")) + pl.col(col.side("n_censored", "b"))) > 0,
     }
     if lowered in simple:
         return simple[lowered].fill_null(False)

@@ -164,6 +164,7 @@ class ReviewSession:
                 confidence=result.settings.confidence,
                 resamples=options.resamples,
                 seed=options.seed,
+                entries=result.entries.entries if result.entries is not None else None,
             )
             if result.values is not None
             else None
@@ -356,6 +357,20 @@ class ReviewSession:
             return np.empty(0), np.empty(0)
         values = self.result.values.values
         return values(group_id(row, "a")), values(group_id(row, "b"))
+
+    def group_limits(self, row: ReviewedRow) -> tuple[np.ndarray, np.ndarray]:
+        """The distinct detection limits of both groups' below-detection entries (empty
+        where a group has none, or without raw data)."""
+        entries = self.result.entries
+
+        def limits(which: col.Side) -> np.ndarray:
+            got = entries.entries(group_id(row, which)) if entries is not None else None
+            if got is None:
+                return np.empty(0)
+            values, below, _ = got
+            return np.unique(values[below])
+
+        return limits("a"), limits("b")
 
     def check_jobs(self, frame: pl.DataFrame) -> list[CheckJob]:
         """The cross-checks the rows of ``frame`` need (those without one yet)."""

@@ -162,7 +162,12 @@ class ReviewScreen(Screen[None]):
         yield StatusLine(id="status")
         yield Input(placeholder=FILTER_HINT, id="filter")
         yield ComparisonList(id="list")
-        yield Detail(self.session.result.settings.band, self.session.group_values, id="detail")
+        yield Detail(
+            self.session.result.settings.band,
+            self.session.group_values,
+            self.session.group_limits,
+            id="detail",
+        )
         yield Footer()
 
     def on_mount(self) -> None:

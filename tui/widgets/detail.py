@@ -88,9 +88,12 @@ class Charts(Static):
 
     DELAY = 0.06
 
-    def __init__(self, values_of: ValuesOf, *, id: str | None = None) -> None:
+    def __init__(
+        self, values_of: ValuesOf, limits_of: ValuesOf | None = None, *, id: str | None = None
+    ) -> None:
         super().__init__("", id=id)
         self._values_of = values_of
+        self._limits_of = limits_of
         self._row: ReviewedRow | None = None
         self._timer: Timer | None = None
 
@@ -112,6 +115,8 @@ class Charts(Static):
             self.update("", layout=False)
             return
         a, b = self._values_of(row)
+        limits_a, limits_b = self._limits_of(row) if self._limits_of else (np.empty(0), np.empty(0))
+        limits = np.unique(np.concatenate([limits_a, limits_b]))
         width = max(self.size.width - 1, 30)
         height = max(self.size.height // 2, 7)
         # Names from the data, with control characters as symbols: the chart's text is read
@@ -119,9 +124,14 @@ class Charts(Static):
         legend = visible(
             f"{readable_outcome(row['outcome'])}: ▲ b {row['level_b']} · ▼ a {row['level_a']}"
         )
-        raw = back_to_back(a, b, log_scale=False, width=width, height=height, title=legend)
-        log_title = "log scale (ticks in raw units) · lines: GM, + median"
-        log = back_to_back(a, b, log_scale=True, width=width, height=height, title=log_title)
+        raw = back_to_back(
+            a, b, log_scale=False, width=width, height=height, title=legend, limits=limits
+        )
+        marks = "lines: GM, + median" + (", grey: detection limits" if limits.size else "")
+        log_title = f"log scale (ticks in raw units) · {marks}"
+        log = back_to_back(
+            a, b, log_scale=True, width=width, height=height, title=log_title, limits=limits
+        )
         self.update(Text.assemble(raw, "\n", log), layout=False)
 
 
@@ -131,15 +141,21 @@ class Detail(Horizontal):
     subject: var[Subject] = var(Subject(), always_update=True, init=False)
 
     def __init__(
-        self, band: tuple[float, float], values_of: ValuesOf, *, id: str | None = None
+        self,
+        band: tuple[float, float],
+        values_of: ValuesOf,
+        limits_of: ValuesOf | None = None,
+        *,
+        id: str | None = None,
     ) -> None:
         super().__init__(id=id)
         self._band = band
         self._values_of = values_of
+        self._limits_of = limits_of
 
     def compose(self) -> ComposeResult:
         yield Facts(self._band, id="facts")
-        yield Charts(self._values_of, id="plots")
+        yield Charts(self._values_of, self._limits_of, id="plots")
 
     def watch_subject(self, old: Subject, new: Subject) -> None:
         try:

@@ -5,6 +5,7 @@ and notes are appended as plain text (never markup), their control characters as
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from typing import Any
 
@@ -78,6 +79,14 @@ GROUP_ROWS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
     ("skewness (raw)", "skew_raw", number_text),
     ("Shapiro p (logs)", "shapiro_p", p_text),
 )
+#: What each method means, beside its name in the estimates.
+METHOD_REMARKS = {
+    "t-test on logs": "no entries below detection",
+    "censored ML": "below-detection entries fitted at their limits (lognormal)",
+    "nondetects left out": "below-detection entries left out",
+    "DL/2 substituted": "below-detection entries set to half the limit",
+    "DL/sqrt2 substituted": "below-detection entries set to the limit / sqrt(2)",
+}
 #: Rows shown only when either group has such entries (laboratory codes).
 CODE_ROWS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
     ("ND, no limit", "n_no_limit", count_text),
@@ -86,16 +95,54 @@ CODE_ROWS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
 )
 
 
+def _median(row: dict[str, Any], which: col.Side) -> str:
+    """The median, "< limit" where the Kaplan-Meier median is undefined (over half the
+    entries below their limits)."""
+    median = row[col.side("median", which)]
+    at_most = row[col.side("median_at_most", which)]
+    if median is None and at_most is not None:
+        return f"< {number_text(at_most)}"
+    return str(number_text(median))
+
+
+def _limits(row: dict[str, Any], which: col.Side) -> str:
+    low = row[col.side("limit_low", which)]
+    high = row[col.side("limit_high", which)]
+    if low is None:
+        return MISSING
+    return number_text(low) if low == high else f"{number_text(low)}-{number_text(high)}"
+
+
+def _share(row: dict[str, Any], which: col.Side) -> str:
+    count = row[col.side("n_censored", which)]
+    share = row[col.side("censored_share", which)]
+    if not count:
+        return "0"
+    return f"{count_text(count)} ({share:.0%})" if share is not None else count_text(count)
+
+
 def _groups(table: _Table, row: ReviewedRow) -> None:
     figures: dict[str, Any] = dict(row)
     table.heads(row["level_a"], row["level_b"])
+    censored = bool(row["n_censored_a"] or row["n_censored_b"])
     for label, figure, write in GROUP_ROWS:
         a, b = figures[col.side(figure, "a")], figures[col.side(figure, "b")]
-        table.pair(label, write(a), write(b))
+        if figure == "n_censored" and censored:
+            table.pair(label, _share(figures, "a"), _share(figures, "b"))
+            table.pair("detection limits", _limits(figures, "a"), _limits(figures, "b"))
+        elif figure == "median" and censored:
+            table.pair("median (K-M)", _median(figures, "a"), _median(figures, "b"))
+        else:
+            table.pair(label, write(a), write(b))
     for label, figure, write in CODE_ROWS:
         a, b = figures[col.side(figure, "a")], figures[col.side(figure, "b")]
         if a or b:
             table.pair(label, write(a), write(b))
+    sides: tuple[col.Side, ...] = ("a", "b")
+    for which in sides:
+        reason = figures[col.side("fit_reason", which)]
+        if reason:
+            table.line(f"no fit for {which}", "-", str(reason))
 
 
 def _estimates(table: _Table, row: ReviewedRow, band: tuple[float, float]) -> None:
@@ -103,6 +150,10 @@ def _estimates(table: _Table, row: ReviewedRow, band: tuple[float, float]) -> No
     test = "Welch" if row["test"] == "welch" else "pooled"
     ci = interval_text(row["ci_low"], row["ci_high"], " to ")
     table.line("ratio b/a (GM)", ratio_text(row["ratio"]), f"{level} CI {ci}")
+    table.line("method", str(row["method"]), METHOD_REMARKS[row["method"]])
+    if row["half_dl_ratio"] is not None:
+        half_ci = interval_text(row["half_dl_ci_low"], row["half_dl_ci_high"], " to ")
+        table.line("with DL/2 instead", ratio_text(row["half_dl_ratio"]), f"{level} CI {half_ci}")
     change = f"change {percent_text(row['percent_change'])}"
     table.line("ratio of medians", ratio_text(row["median_ratio"]), change)
     degrees = f"df {number_text(row['df'])} ({test} t on logs)"
@@ -128,6 +179,12 @@ def _cross_checks(table: _Table, row: ReviewedRow, check: RobustCheck | None) ->
     hl_ci = interval_text(check.hl_ci_low, check.hl_ci_high, " to ")
     remark = f"CI {hl_ci}, Mann-Whitney {p_text(check.mann_whitney_p, 'p')}"
     table.line("Hodges-Lehmann", ratio_text(check.hl_ratio), remark)
+    if not math.isnan(check.peto_prentice_p):
+        table.line(
+            "Peto-Prentice",
+            p_text(check.peto_prentice_p, "p"),
+            "uses the limits; the checks above use detected values only",
+        )
 
 
 def _warnings(text: Text, row: ReviewedRow) -> None:

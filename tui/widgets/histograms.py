@@ -31,10 +31,13 @@ def back_to_back(
     width: int,
     height: int,
     title: str,
+    limits: np.ndarray | None = None,
 ) -> Text:
     """Group b's histogram above the axis and group a's below it, on shared bins, each as a
     percentage of its own group so groups of different size compare; a line in each group's
-    colour marks its geometric mean, a dotted one its median."""
+    colour marks its geometric mean, a dotted one its median; grey lines mark ``limits``
+    (detection limits of below-detection entries, which the bars do not hold)."""
+    marks = np.asarray(limits if limits is not None else np.empty(0), dtype=float)
     values_a = np.asarray(values_a, dtype=float)
     values_b = np.asarray(values_b, dtype=float)
     if values_a.size + values_b.size == 0:
@@ -42,7 +45,9 @@ def back_to_back(
     transform = np.log if log_scale else (lambda v: v)
     with np.errstate(all="ignore"):
         data_a, data_b = transform(values_a), transform(values_b)
-    both = np.concatenate([data_a, data_b])
+    with np.errstate(all="ignore"):
+        data_limits = transform(marks[marks > 0]) if log_scale else marks
+    both = np.concatenate([data_a, data_b, data_limits])
     low, high = float(both.min()), float(both.max())
     if not (math.isfinite(low) and math.isfinite(high)) or not math.isfinite(high - low):
         return Text("values too large to draw on this scale", style="italic")
@@ -53,7 +58,16 @@ def back_to_back(
     try:
         with np.errstate(all="ignore"):
             return _draw(
-                data_a, data_b, values_a, values_b, low, high, log_scale, width, height, title
+                data_a,
+                data_b,
+                values_a,
+                values_b,
+                low,
+                high,
+                log_scale,
+                (width, height),
+                title,
+                data_limits,
             )
     except (ValueError, OverflowError, ZeroDivisionError) as error:  # never end the session
         plt.clf()  # a failed build leaves plotext's figure half made
@@ -68,10 +82,11 @@ def _draw(
     low: float,
     high: float,
     log_scale: bool,
-    width: int,
-    height: int,
+    size: tuple[int, int],
     title: str,
+    data_limits: np.ndarray,
 ) -> Text:
+    width, height = size
     transform = np.log if log_scale else (lambda v: v)
     bins = int(max(6, min(24, (width - 10) // 3)))
     edges = np.linspace(low, high, bins + 1)
@@ -87,6 +102,8 @@ def _draw(
     plt.bar(centres, list(share_b), color=COLOR_B, width=0.8)
     plt.bar(centres, list(-share_a), color=COLOR_A, width=0.8)
     plt.hline(0, "gray")
+    for position in data_limits[:8]:
+        plt.vline(float(position), "gray+")
     for values, color in ((values_a, COLOR_A), (values_b, COLOR_B)):
         if values.size:
             plt.vline(float(transform(_geometric_mean(values))), color)
