@@ -82,9 +82,10 @@ def test_substitution_policies_have_their_method_words(tmp_path):
     table = load_table(_table_csv(tmp_path))
     for policy, word in (("half-dl", "dl2"), ("dl-root2", "dl-root2"), ("exclude", "left-out")):
         frame = run_scan(table, ScanSettings(policy=ValuePolicy(censored=policy))).comparisons
-        assert _shown(frame, f"method:{word}").height == frame.filter(
-            pl.col("outcome") == "lead"
-        ).height
+        assert (
+            _shown(frame, f"method:{word}").height
+            == frame.filter(pl.col("outcome") == "lead").height
+        )
 
 
 def _flipped_km_median(values: np.ndarray, below: np.ndarray) -> float:
@@ -160,9 +161,7 @@ def test_session_cross_check_adds_peto_prentice_for_censored_rows(tmp_path):
         a = session.result.entries.entries((*group, row["level_a"], "lead"))
         b = session.result.entries.entries((*group, row["level_b"], "lead"))
         top = max(a[0].max(), b[0].max()) + 1
-        reference = logrank_test(
-            top - a[0], top - b[0], ~a[1], ~b[1], weightings="peto"
-        ).p_value
+        reference = logrank_test(top - a[0], top - b[0], ~a[1], ~b[1], weightings="peto").p_value
         assert check.peto_prentice_p == pytest.approx(reference, rel=1e-9)
         assert np.isnan(session.checks[plain["key"][0]].peto_prentice_p)
     finally:
