@@ -66,8 +66,8 @@ WARNINGS: dict[WarningName, str] = {
         "they were left out, so the group looks higher than it is"
     ),
     "above-range": (
-        "a group has entries above the measuring range (>x), used at the stated number: that "
-        "group's figures are understated"
+        "a group has entries above the measuring range (>x): fitted as lying above x under "
+        "censored ML, otherwise used at x, which understates that group"
     ),
     "units-apart": (
         "this analyte was also reported in a unit that does not convert into this one; those "

@@ -10,10 +10,11 @@ so they stay empty.
 Censored fits (under the default ``--censored mle``): a row with ``n_censored`` > 0 is the
 censored maximum-likelihood fit of its group: ``n`` counts every entry (detected and below
 detection), ``mean_log`` and ``sd_log`` are the fit's estimates of the mean and SD of the
-logs, and the optional ``se_mean_log`` is the fit's standard error of ``mean_log`` (used as
-given). Without it the variance of ``mean_log`` is the expected-information value for one
-detection limit at the row's censored share (``censored_information``), times n / (n - 1)
-as for raw data. The fit rules of raw data apply: fewer than 2 detected entries or more
+logs, and the optional ``se_mean_log`` is the fit's standard error of ``mean_log`` (the
+square root of the inverse observed information, as survival libraries report it). Without
+it the variance of ``mean_log`` is the expected-information value for one detection limit
+at the row's censored share (``censored_information``). Either is multiplied by n / (n - 1),
+as for raw data, so a summary of the same fits gives the raw scan's numbers. The fit rules of raw data apply: fewer than 2 detected entries or more
 than 80% censored gives no ratio and the ``not-fitted`` warning. Under another policy
 ``n_censored`` only counts entries that ``n`` does not hold.
 """
@@ -146,7 +147,8 @@ def _censored_fits(summaries: pl.DataFrame, typed: pl.DataFrame, spread: str) ->
         ]
         approximate = variance_of_mean_log(n, censored, sd) * n / (n - 1)
     if "se_mean_log" in typed.columns:
-        given = typed["se_mean_log"].to_numpy().astype(float) ** 2
+        with np.errstate(divide="ignore", invalid="ignore"):
+            given = typed["se_mean_log"].to_numpy().astype(float) ** 2 * n / (n - 1)
         variance = np.where(np.isfinite(given), given, approximate)
     else:
         variance = approximate

@@ -108,8 +108,13 @@ def test_pandas_summary_of_the_demo_matches_the_raw_scan(tmp_path):
     expected = raw.sort("key")
     assert got["key"].to_list() == expected["key"].to_list()
     for name in ("ratio", "ci_low", "ci_high", "p_value", "q_bh", "median_ratio"):
+        # The raw scan's medians of groups with below-detection entries are Kaplan-Meier
+        # medians (test_censored_scan.py checks them against lifelines); the pandas summary
+        # has the medians of the substituted values, so those rows are compared without them.
+        plain = (expected["n_censored_a"] + expected["n_censored_b"] == 0).to_numpy()
+        rows = plain if name == "median_ratio" else np.ones(plain.size, dtype=bool)
         np.testing.assert_allclose(
-            got[name].to_numpy(), expected[name].to_numpy(), rtol=1e-9, err_msg=name
+            got[name].to_numpy()[rows], expected[name].to_numpy()[rows], rtol=1e-9, err_msg=name
         )
 
 

@@ -4,6 +4,8 @@ through it, and tests use it directly."""
 
 from __future__ import annotations
 
+import hashlib
+import json
 import tempfile
 from collections.abc import Callable, Sequence
 from contextlib import suppress
@@ -40,7 +42,14 @@ from foldsift.stats.vocabulary import Decision
 
 from .export import join_reviews, write_export
 from .filtering import FilterError, parse_filter
-from .store import Review, ReviewConflict, ReviewStore, ReviewStoreError, default_review_path
+from .store import (
+    STAMP_PREFIX,
+    Review,
+    ReviewConflict,
+    ReviewStore,
+    ReviewStoreError,
+    default_review_path,
+)
 
 #: Which rows an export writes: flagged ones, ones with a decision, the ones the filter
 #: shows, or all of them.
@@ -134,6 +143,63 @@ def _list_columns(frame: pl.DataFrame, outcomes: Sequence[str]) -> pl.DataFrame:
     )
 
 
+#: The columns whose values a review judged: the groups' sizes, centres and spreads, the
+#: ratio with its CI and p, the counts of entries left out, substituted or censored, and
+#: the method. Not q or Holm's p, which move when other comparisons change.
+STAMPED_COLUMNS = (
+    "n_a",
+    "n_b",
+    "gm_a",
+    "gm_b",
+    "sd_log_a",
+    "sd_log_b",
+    "median_a",
+    "median_b",
+    "ratio",
+    "ci_low",
+    "ci_high",
+    "p_value",
+    "n_excluded_a",
+    "n_excluded_b",
+    "n_substituted_a",
+    "n_substituted_b",
+    "n_censored_a",
+    "n_censored_b",
+    "method",
+)
+#: Settings that change the numbers of a comparison that exists under both (not which
+#: comparisons exist, nor the adjustment over the others).
+_UNSTAMPED_SETTINGS = ("pairs", "reference", "family", "max_comparisons")
+
+
+def comparison_stamps(comparisons: pl.DataFrame, settings: ScanSettings) -> dict[str, str]:
+    """Per key, the stamp a review of that comparison carries: ``c1:`` + the SHA-256 of the
+    comparison's inputs (``STAMPED_COLUMNS`` and the settings that change them), then
+    ``|n_a|n_b|ratio`` as they are now, so a later session can say what changed."""
+    chosen = {k: v for k, v in settings.as_dict().items() if k not in _UNSTAMPED_SETTINGS}
+    prefix = json.dumps(chosen, sort_keys=True, default=str)
+    text = comparisons.select(
+        col.KEY,
+        pl.concat_str(
+            [pl.col(name).cast(pl.Utf8).fill_null("-") for name in STAMPED_COLUMNS],
+            separator="\x1f",
+        ).alias("inputs"),
+        pl.concat_str(
+            [
+                pl.col(col.N_A).cast(pl.Utf8),
+                pl.col(col.N_B).cast(pl.Utf8),
+                pl.col(col.RATIO).cast(pl.Utf8).fill_null(""),
+            ],
+            separator="|",
+        ).alias("snapshot"),
+    )
+    stamps = {}
+    for key, inputs, snapshot in text.iter_rows():
+        digest = hashlib.sha256(f"{prefix}\x1e{key}\x1e{inputs}".encode()).hexdigest()
+        stamps[key] = f"{STAMP_PREFIX}{digest}|{snapshot}"
+    return stamps
+
+
 def _review_values(review: Review | None) -> dict[str, Any]:
     return {
         col.FLAGGED: review.flagged if review else False,
@@ -169,6 +235,7 @@ class ReviewSession:
             if result.values is not None
             else None
         )
+        store.use_stamps(comparison_stamps(result.comparisons, result.settings))
         reviews = carry_over(result.comparisons, store)
         known = set(result.comparisons[col.KEY].to_list())
         #: Stored reviews that match no comparison (a level renamed, an outcome dropped):

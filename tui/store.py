@@ -40,6 +40,7 @@ __all__ = [
     "DEFAULT_BUSY_TIMEOUT",
     "REVIEW_SCHEMA",
     "SCHEMA_VERSION",
+    "STAMP_PREFIX",
     "Review",
     "ReviewConflict",
     "ReviewStore",
@@ -147,13 +148,46 @@ class Review:
     updated_at: str
     #: Grows on every change of this row; read-only stores of version-1 files report 0.
     version: int
-    # Not part of the stored row, so it takes no part in equality.
+    # Not part of the stored row, so it takes no part in equality: the stamp this comparison
+    # has now, and the fingerprint of the whole data file now loaded.
     store_fingerprint: str = field(repr=False, compare=False)
+    data_fingerprint: str = field(default="", repr=False, compare=False)
 
     @property
     def on_earlier_data(self) -> bool:
-        """True when this review was last changed while different data was loaded."""
-        return self.fingerprint != self.store_fingerprint
+        """True when the comparison this review judged has changed since it was last
+        changed: its stamp (``comparison_stamp``) differs from the comparison's stamp now.
+        A review stamped with a whole file's fingerprint (written before comparisons had
+        stamps) counts as current while that same file is loaded."""
+        stamp = stamp_identity(self.fingerprint)
+        return stamp not in (stamp_identity(self.store_fingerprint), self.data_fingerprint)
+
+    @property
+    def judged(self) -> tuple[int, int, float | None] | None:
+        """(n_a, n_b, ratio) of the comparison when the review was last changed, where the
+        stamp holds them (None for reviews stamped before stamps held them)."""
+        return stamp_snapshot(self.fingerprint)
+
+
+#: Stamps of comparisons start with this, then the SHA-256 of the comparison's inputs, then
+#: ``|n_a|n_b|ratio`` as they were (the ratio as Python's repr, or "" when there was none).
+STAMP_PREFIX = "c1:"
+
+
+def stamp_identity(stamp: str) -> str:
+    """The part of a stamp that identifies the data judged (without the snapshot)."""
+    return stamp.split("|", 1)[0]
+
+
+def stamp_snapshot(stamp: str) -> tuple[int, int, float | None] | None:
+    if not stamp.startswith(STAMP_PREFIX):
+        return None
+    parts = stamp.split("|")
+    try:
+        _, n_a, n_b, ratio = parts
+        return int(n_a), int(n_b), (float(ratio) if ratio else None)
+    except ValueError:
+        return None
 
 
 class ReviewStore:
@@ -183,6 +217,9 @@ class ReviewStore:
             raise ValueError("busy_timeout must be zero or a positive number of seconds")
         self._path = Path(path).expanduser()
         self._fingerprint = fingerprint
+        # The stamp of each comparison now (``use_stamps``); a key without one gets the file's
+        # fingerprint, as before comparisons had stamps.
+        self._stamps: dict[str, str] = {}
         self._read_only = bool(read_only)
         # The version last read or written of each key; a missing key counts as absent.
         self._seen: dict[str, int] = {}
@@ -228,6 +265,12 @@ class ReviewStore:
     def fingerprint(self) -> str:
         """Fingerprint of the data currently loaded; stamped on every change."""
         return self._fingerprint
+
+    def use_stamps(self, stamps: dict[str, str]) -> None:
+        """Stamp each change of a key with that comparison's stamp (``comparison_stamp``), and
+        judge stored reviews against it: only reviews whose own comparison changed count as
+        made on earlier data."""
+        self._stamps = dict(stamps)
 
     @property
     def read_only(self) -> bool:
@@ -457,7 +500,7 @@ class ReviewStore:
                 version = _next_version(conn)
                 conn.execute(
                     _UPSERT,
-                    (key, int(flagged), decision, note, self._fingerprint, _utc_now(), version),
+                    (key, int(flagged), decision, note, self._stamp(key), _utc_now(), version),
                 )
         self._remember(key, version)
         return flagged, decision, note
@@ -487,8 +530,12 @@ class ReviewStore:
             fingerprint=fingerprint,
             updated_at=updated_at,
             version=int(version),
-            store_fingerprint=self._fingerprint,
+            store_fingerprint=self._stamp(key),
+            data_fingerprint=self._fingerprint,
         )
+
+    def _stamp(self, key: str) -> str:
+        return self._stamps.get(key, self._fingerprint)
 
 
 # -- changes on the connection -------------------------------------------------------------

@@ -27,6 +27,7 @@ from foldsift.stats.formatting import (
 from foldsift.stats.robust import RobustCheck
 from foldsift.stats.sentence import finding
 
+from ..store import stamp_snapshot
 from .histograms import STYLE_A, STYLE_B
 from .plain import make_visible, visible
 
@@ -195,6 +196,22 @@ def _warnings(text: Text, row: ReviewedRow) -> None:
         text.append("no warnings\n", style="green")
 
 
+def _what_changed(row: ReviewedRow) -> str:
+    """"review made on earlier data: n 48/47 -> 48/46, ratio 3.99 -> 4.10" where the review's
+    stamp holds what it judged; a plainer line for reviews stamped before stamps did."""
+    then = stamp_snapshot(row["review_fingerprint"] or "")
+    if then is None:
+        return "review made on an earlier version of the data"
+    n_a, n_b, ratio = then
+    changes = []
+    if (n_b, n_a) != (row["n_b"], row["n_a"]):
+        changes.append(f"n {n_b}/{n_a} -> {row['n_b']}/{row['n_a']}")
+    if ratio != row["ratio"]:
+        changes.append(f"ratio {ratio_text(ratio)} -> {ratio_text(row['ratio'])}")
+    detail = ", ".join(changes) or "other figures of this comparison changed"
+    return f"review made on earlier data: {detail}"
+
+
 def _review(text: Text, row: ReviewedRow) -> None:
     state = []
     if row["decision"] is not None:
@@ -202,7 +219,7 @@ def _review(text: Text, row: ReviewedRow) -> None:
     if row["flagged"]:
         state.append("flagged")
     if row["on_earlier_data"]:
-        state.append("review made on an earlier version of the data file")
+        state.append(_what_changed(row))
     if state:
         text.append(" · ".join(state) + "\n", style="bold")
     if row["note"]:
