@@ -61,10 +61,15 @@ def painted(app: FoldsiftApp, y: int) -> str:
     return listing(app).render_line(y).text
 
 
-def header_x(sort_on: str) -> int:
+def shown_columns(app: FoldsiftApp):
+    """The list's columns as laid out now (they follow the terminal's width)."""
+    return listing(app).columns
+
+
+def header_x(app: FoldsiftApp, sort_on: str) -> int:
     """An x offset inside the title of the column that sorts on `sort_on`."""
     x = 0
-    for column in COLUMNS:
+    for column in shown_columns(app):
         if column.sort_on == sort_on:
             return x + column.width // 2
         x += column.width + len(SEPARATOR)
@@ -74,7 +79,7 @@ def header_x(sort_on: str) -> int:
 def header_cell(app: FoldsiftApp, sort_on: str) -> str:
     """The painted title of the column that sorts on `sort_on`, without padding."""
     x = 0
-    for column in COLUMNS:
+    for column in shown_columns(app):
         if column.sort_on == sort_on:
             return painted(app, 0)[x : x + column.width].strip()
         x += column.width + len(SEPARATOR)
@@ -86,7 +91,7 @@ def sorted_by(app: FoldsiftApp) -> tuple[str, bool]:
     arrow (exactly one column carries one)."""
     arrows = [
         (column.sort_on, cell.endswith("↓"))
-        for column in COLUMNS
+        for column in shown_columns(app)
         if (cell := header_cell(app, column.sort_on)).endswith(("↑", "↓"))
     ]
     assert len(arrows) == 1, arrows
@@ -183,7 +188,7 @@ async def test_s_cycles_every_sort_column_and_r_reverses(tmp_path: Path) -> None
 async def test_reverse_keeps_the_cursor_on_its_comparison(tmp_path: Path) -> None:
     async with running(tmp_path) as (app, pilot):
         lst = listing(app)
-        await pilot.click(ComparisonList, offset=(header_x("ratio"), 0))
+        await pilot.click(ComparisonList, offset=(header_x(app, "ratio"), 0))
         await press_and_settle(pilot, "home")
         smallest = current(app)
         assert smallest["ratio"] == shown(app)["ratio"].min()
@@ -209,19 +214,21 @@ async def test_reverse_keeps_the_cursor_on_its_comparison(tmp_path: Path) -> Non
 async def test_clicking_a_header_sorts_and_clicking_again_reverses(
     tmp_path: Path, sort_on: str
 ) -> None:
-    column = next(column for column in COLUMNS if column.sort_on == sort_on)
     # The title (shortened if the column is narrow) followed by the direction arrow.
+    column = next(column for column in COLUMNS if column.sort_on == sort_on)
     title = column.title[: column.width - 1]
-    async with running(tmp_path) as (app, pilot):
+    # 200 columns: every column is on screen to be clicked (narrower terminals show the
+    # optional ones only when sorted on, see test_list_layout.py).
+    async with running(tmp_path, size=(200, 50)) as (app, pilot):
         await press_and_settle(pilot, "down", "space", "end", "space")
-        await pilot.click(ComparisonList, offset=(header_x(sort_on), 0))
+        await pilot.click(ComparisonList, offset=(header_x(app, sort_on), 0))
         await pilot.pause()
         assert sorted_by(app) == (sort_on, False)
         assert_sorted(column_values(shown(app), sort_on), False, sort_on)
         assert header_cell(app, sort_on) == f"{title}↑"
         assert "ascending" in status(app)
 
-        await pilot.click(ComparisonList, offset=(header_x(sort_on), 0))
+        await pilot.click(ComparisonList, offset=(header_x(app, sort_on), 0))
         await pilot.pause()
         assert sorted_by(app) == (sort_on, True)
         assert_sorted(column_values(shown(app), sort_on), True, sort_on)

@@ -453,10 +453,10 @@ async def test_review_robust_option_cross_checks_everything_on_open(tmp_path: Pa
 
 async def test_change_column_sorts_on_the_size_of_the_change(tmp_path: Path) -> None:
     """Sorting on "change" ranks a 0.25× ratio beside a 4× one: |log2 ratio| descending."""
-    async with running(tmp_path) as (app, pilot):
-        await pilot.click("#list", offset=(_column_x("change"), 0))  # sort on it
+    async with running(tmp_path, size=(200, 50)) as (app, pilot):  # wide: the column shows
+        await pilot.click("#list", offset=(_column_x(app, "change"), 0))  # sort on it
         await pilot.pause()
-        await pilot.click("#list", offset=(_column_x("change"), 0))  # again: descending
+        await pilot.click("#list", offset=(_column_x(app, "change"), 0))  # again: descending
         await pilot.pause()
         sizes = [abs(v) for v in shown(app)["log2_ratio"].drop_nulls().to_list()]
         assert sizes == sorted(sizes, reverse=True)
@@ -474,11 +474,11 @@ def app_from_command_line(tmp_path: Path, *options: str) -> FoldsiftApp:
     return FoldsiftApp(options_from(args), args.robust, export_dir=tmp_path)
 
 
-def _column_x(title: str) -> int:
-    from foldsift.tui.widgets.comparison_list import COLUMNS, SEPARATOR
+def _column_x(app, title: str) -> int:
+    from foldsift.tui.widgets.comparison_list import SEPARATOR
 
     x = 0
-    for column in COLUMNS:
+    for column in app.screen.query_one("#list").columns:
         if column.title == title:
             return x + 1
         x += column.width + len(SEPARATOR)

@@ -18,7 +18,7 @@ KEYS: tuple[tuple[str, str], ...] = (
     ("space", "flag or unflag the highlighted comparison"),
     ("1 / 2 / 3 / 0", "decision: keep / doubt / drop / none"),
     ("n", "write a note (ctrl+s saves, escape cancels; a draft is kept as you type)"),
-    ("b", "cross-checks: bootstrap CI of the median ratio, Hodges-Lehmann"),
+    ("b", "cross-checks: bootstrap CI of the median ratio, Hodges-Lehmann, Peto-Prentice"),
     ("B / escape", "cross-check every shown comparison (progress in the status) / stop"),
     ("x", "export flagged, decided, filtered or all rows to CSV"),
     ("z", "pane sizes: balanced, large detail, large list"),
@@ -28,10 +28,40 @@ KEYS: tuple[tuple[str, str], ...] = (
 )
 
 
+#: The list's columns and marks, as the help explains them. Columns shown depend on the
+#: terminal's width: the ones marked "always" are on screen at 80 columns.
+LIST_COLUMNS: tuple[tuple[str, str], ...] = (
+    ("⚑", "flagged (always)"),
+    ("outcome", "the measured column, with its unit (always)"),
+    ("level b ÷ level a", "the two groups compared: b over a, a is the reference (always)"),
+    ("ratio", "geometric mean of b ÷ geometric mean of a (always)"),
+    ("CI", "its confidence interval (always)"),
+    ("q", "Benjamini-Hochberg adjusted p across the family (always)"),
+    ("warn", "!N: the comparison carries N warnings; the detail explains each (always)"),
+    ("decision", "keep, doubt or drop, as you decided (always)"),
+    ("✎", "the comparison has a note (always)"),
+    ("n b/a", "usable values in b and in a"),
+    ("p", "the t-test's p before adjustment"),
+    ("grouping", "the grouping column (·stratum when compared within strata)"),
+    ("change", "percent change of b over a; sorts on the size of the change either way"),
+    ("class", "where the 90% CI falls against the band of no practical difference"),
+    ("method", "t-test on logs, censored ML, or a substitution for below-detection values"),
+)
+
+
 def help_text(band: tuple[float, float] = DEFAULT_BAND) -> str:
-    """Keys, filter words, equivalence classes (against ``band``) and warnings."""
+    """Keys, the list's columns, filter words, equivalence classes (against ``band``) and
+    warnings."""
     lines = ["# foldsift keys", ""]
     lines += [f"- **{key}** — {does}" for key, does in KEYS]
+    lines += ["", "# The list", ""]
+    lines += [
+        "Columns follow the terminal's width: the optional ones appear when there is room, "
+        "and the column sorted on is always shown. Rows in italics hold a review made on "
+        "earlier data (the comparison has changed since); flagged rows are coloured.",
+        "",
+    ]
+    lines += [f"- **{name}** — {what}" for name, what in LIST_COLUMNS]
     lines += ["", "# Filter line", "", filtering.FILTER_WORDS]
     lines += ["", "# Equivalence classes", ""]
     lines += [f"The band of this scan: {interval_text(*band)} (set it with --band).", ""]

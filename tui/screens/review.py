@@ -131,15 +131,15 @@ class ReviewScreen(Screen[None]):
         Binding("r", "reverse_sort", "Reverse", show=False, id="app.reverse"),
         Binding("space", "toggle_flag", "Flag", id="app.flag"),
         Binding("n", "edit_note", "Note", id="app.note"),
-        Binding("1", "decide('keep')", "Keep·2 Doubt·3 Drop", id="app.keep"),
+        Binding("1", "decide('keep')", "Decide", id="app.keep"),
         Binding("2", "decide('doubt')", "Doubt", show=False, id="app.doubt"),
         Binding("3", "decide('drop')", "Drop", show=False, id="app.drop"),
         Binding("0", "clear_decision", "Undecide", show=False, id="app.undecide"),
-        Binding("b", "robust", "Cross-check", id="app.robust"),
+        Binding("b", "robust", "Check", id="app.robust"),
         Binding("B", "robust_shown", "Cross-check shown", show=False, id="app.robust_shown"),
         Binding("escape", "stop_checks", "Stop checks", show=False, id="app.stop_checks"),
         Binding("x", "export", "Export", id="app.export"),
-        Binding("z", "cycle_panes", "Panes", id="app.panes"),
+        Binding("z", "cycle_panes", "Panes", show=False, id="app.panes"),
     ]
 
     sort_on: reactive[str] = reactive(DEFAULT_SORT, init=False)

@@ -48,12 +48,18 @@ def _warnings(row: ReviewedRow) -> str:
     return f"!{row['warning_count']}" if row["warning_count"] else ""
 
 
-# Most-read columns first, so an 80-column terminal shows the finding without scrolling; the
-# whole row fits 120 columns with the vertical scroll bar.
+def _class(row: ReviewedRow) -> str:
+    return str(row["band_class"] or "")
+
+
+# Every column the list can show, in display order. The list shows the REQUIRED ones at any
+# width (so flag, decision and note are on screen at 80 columns), lets the outcome and level
+# names take the width their longest names need, and adds the others, in OPTIONAL order,
+# while they fit (``layout``).
 COLUMNS: tuple[Column, ...] = (
     Column("⚑", 1, col.FLAGGED, lambda r: "⚑" if r["flagged"] else " "),
-    Column("outcome", 18, col.OUTCOME, lambda r: r["outcome_label"]),
-    Column("level b ÷ level a", 18, col.LEVEL_B, lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
+    Column("outcome", 12, col.OUTCOME, lambda r: r["outcome_label"]),
+    Column("level b ÷ level a", 14, col.LEVEL_B, lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
     Column("ratio", 7, col.RATIO, lambda r: ratio_text(r["ratio"]), right=True),
     Column("CI", 12, col.CI_LOW, lambda r: interval_text(r["ci_low"], r["ci_high"])),
     Column("q", 7, col.Q_BH, lambda r: p_text(r["q_bh"]), right=True),
@@ -63,9 +69,58 @@ COLUMNS: tuple[Column, ...] = (
     Column("grouping", 12, col.GROUPING, _grouping),
     # Sorted on the size of the change either way (|log ratio|), so 0.25× ranks beside 4×.
     Column("change", 6, col.CHANGE_SIZE, lambda r: percent_text(r["percent_change"]), right=True),
-    Column("decision", 6, col.DECISION, lambda r: r["decision"] or ""),
+    Column("class", 16, col.BAND_CLASS, _class),
+    Column("method", 14, "method", lambda r: str(r["method"])),
+    Column("decision", 8, col.DECISION, lambda r: r["decision"] or ""),
     Column("✎", 1, col.NOTE, lambda r: "✎" if r["note"] else " "),
 )
+REQUIRED = ("⚑", "outcome", "level b ÷ level a", "ratio", "CI", "q", "warn", "decision", "✎")
+#: The other columns, most useful first: added while the terminal has room for them.
+OPTIONAL = ("n b/a", "p", "grouping", "change", "class", "method")
+#: The widest the name columns grow (longer names are cut with "…").
+NAME_LIMIT = 40
+
+
+def layout(width: int, natural: dict[str, int], sort_on: str = "") -> tuple[Column, ...]:
+    """The columns to show in ``width`` cells: the required ones and the one sorted on, the
+    name columns grown toward their ``natural`` widths (the longest name, at most
+    NAME_LIMIT: names are cut only when the terminal has no room for them), then optional
+    columns while they fit."""
+    sizes = {c.title: c.width for c in COLUMNS if c.title in REQUIRED}
+    widths = {c.title: c.width for c in COLUMNS}
+    names = ("outcome", "level b ÷ level a")
+
+    def used() -> int:
+        return sum(sizes.values()) + len(SEPARATOR) * (len(sizes) - 1)
+
+    def grow(limit: dict[str, int]) -> None:
+        """Share the room left between the two name columns, in proportion to what each
+        still lacks of ``limit``."""
+        room = width - used()
+        lacking = {n: max(limit[n] - sizes[n], 0) for n in names}
+        total = sum(lacking.values())
+        if room <= 0 or total == 0:
+            return
+        share = {n: lacking[n] * min(room, total) // total for n in names}
+        share[names[0]] += min(room, total) - sum(share.values())
+        for name in names:
+            sizes[name] += min(share[name], lacking[name])
+
+    for column in COLUMNS:
+        if column.sort_on == sort_on and column.title not in sizes:
+            sizes[column.title] = column.width
+    wanted = {n: min(max(natural.get(n, 0), widths[n]), NAME_LIMIT) for n in names}
+    grow(wanted)
+    for title in OPTIONAL:
+        if used() + len(SEPARATOR) + widths[title] <= width:
+            sizes[title] = widths[title]
+    return tuple(
+        Column(c.title, sizes[c.title], c.sort_on, c.render, c.right)
+        for c in COLUMNS
+        if c.title in sizes
+    )
+
+
 #: Every column the list sorts on, in the order ``s`` steps through them.
 SORTABLE: tuple[str, ...] = tuple(column.sort_on for column in COLUMNS)
 #: How the status line names each sort column.
@@ -90,6 +145,19 @@ def _cell(text: str, column: Column) -> str:
         text = set_cell_size(text, column.width - 1) + "…"
     padding = " " * (column.width - cell_len(text))
     return padding + text if column.right else text + padding
+
+
+def _natural_widths(frame: pl.DataFrame) -> dict[str, int]:
+    """The cells the longest outcome label and level pair of the frame take."""
+    if not frame.height or col.OUTCOME_LABEL not in frame.columns:
+        return {}
+    widths = frame.select(
+        pl.col(col.OUTCOME_LABEL).str.len_chars().max().alias("outcome"),
+        (pl.col(col.LEVEL_B).str.len_chars() + pl.col(col.LEVEL_A).str.len_chars() + 3)
+        .max()
+        .alias("level b ÷ level a"),
+    ).row(0, named=True)
+    return {name: int(value or 0) for name, value in widths.items()}
 
 
 class ComparisonList(ScrollView, can_focus=True):
@@ -144,7 +212,24 @@ class ComparisonList(ScrollView, can_focus=True):
         super().__init__(id=id)
         self._frame: pl.DataFrame = pl.DataFrame()
         self._line_cache: dict[tuple[int, bool, int], Strip] = {}
-        self._total_width = sum(c.width for c in COLUMNS) + len(SEPARATOR) * (len(COLUMNS) - 1)
+        self._natural: dict[str, int] = {}
+        self._columns: tuple[Column, ...] = layout(80, {})
+
+    @property
+    def columns(self) -> tuple[Column, ...]:
+        """The columns shown now, with their widths (they follow the widget's width)."""
+        return self._columns
+
+    @property
+    def _total_width(self) -> int:
+        return sum(c.width for c in self._columns) + len(SEPARATOR) * (len(self._columns) - 1)
+
+    def _lay_out(self) -> None:
+        # The content's width: the vertical scroll bar takes its cells from the widget's.
+        width = self.size.width - self.styles.scrollbar_size_vertical
+        self._columns = layout(max(width, 40), self._natural, self.sort_on)
+        self._line_cache.clear()
+        self.virtual_size = Size(self._total_width, self._frame.height + 1)
 
     # -- data -------------------------------------------------------------------------------
     @property
@@ -154,8 +239,8 @@ class ComparisonList(ScrollView, can_focus=True):
     def show(self, frame: pl.DataFrame, *, keep_key: str | None = None) -> None:
         """Show this (already sorted and filtered) frame; keep the cursor on keep_key."""
         self._frame = frame
-        self._line_cache.clear()
-        self.virtual_size = Size(self._total_width, frame.height + 1)
+        self._natural = _natural_widths(frame)
+        self._lay_out()
         index = 0
         if keep_key is not None and frame.height:
             found = frame.select(pl.arg_where(pl.col(col.KEY) == keep_key)).to_series()
@@ -221,13 +306,17 @@ class ComparisonList(ScrollView, can_focus=True):
         self.cursor_row = self._frame.height - 1
 
     def on_resize(self) -> None:
-        self._line_cache.clear()
+        self._lay_out()
+
+    def watch_sort_on(self) -> None:
+        self._lay_out()
+        self.refresh()
 
     async def on_click(self, event: events.Click) -> None:
         x = event.x + int(self.scroll_x)
         if event.y == 0:
             position = 0
-            for column in COLUMNS:
+            for column in self._columns:
                 if position <= x < position + column.width + len(SEPARATOR):
                     self.post_message(self.HeaderClicked(column.sort_on))
                     return
@@ -243,14 +332,14 @@ class ComparisonList(ScrollView, can_focus=True):
         base = self.get_component_rich_style("comparison-list--header")
         sorted_style = self.get_component_rich_style("comparison-list--sorted")
         segments = []
-        for index, column in enumerate(COLUMNS):
+        for index, column in enumerate(self._columns):
             title = column.title
             is_sorted = column.sort_on == self.sort_on
             if is_sorted:
                 # Shorten the title, not the arrow, when the column is narrow.
                 title = title[: column.width - 1] + ("↓" if self.descending else "↑")
             segments.append(Segment(_cell(title, column), sorted_style if is_sorted else base))
-            if index < len(COLUMNS) - 1:
+            if index < len(self._columns) - 1:
                 segments.append(Segment(SEPARATOR, base))
         return Strip(segments)
 
@@ -279,7 +368,7 @@ class ComparisonList(ScrollView, can_focus=True):
             style += self.get_component_rich_style("comparison-list--earlier")
         if selected:
             style += self.get_component_rich_style("comparison-list--cursor")
-        text = SEPARATOR.join(_cell(column.render(row), column) for column in COLUMNS)
+        text = SEPARATOR.join(_cell(column.render(row), column) for column in self._columns)
         strip = Strip([Segment(text, style)]).extend_cell_length(scroll_x + width, style)
         strip = strip.crop(scroll_x, scroll_x + width)
         if len(self._line_cache) > 500:

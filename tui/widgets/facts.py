@@ -9,6 +9,7 @@ import math
 from collections.abc import Callable
 from typing import Any
 
+from rich.cells import cell_len
 from rich.text import Text
 
 from foldsift.stats import columns as col
@@ -42,6 +43,7 @@ class _Table:
 
     def __init__(self, text: Text, width: int) -> None:
         self.text = text
+        self.width = width
         self.label_width, self.value_width = (
             (LABEL_WIDTH, VALUE_WIDTH) if width >= NARROW else (15, 10)
         )
@@ -50,11 +52,22 @@ class _Table:
         self.text.append(label[: self.label_width].ljust(self.label_width))
 
     def heads(self, level_a: str, level_b: str) -> None:
+        """Column heads "a: name" and "b: name"; when a name does not fit its column, the
+        full names go on a line of their own and the heads are just "a" and "b"."""
         level_a, level_b = visible(level_a), visible(level_b)
+        needed = max(cell_len(level_a), cell_len(level_b)) + 4
+        if needed > self.value_width and self.label_width + 2 * needed <= self.width:
+            self.value_width = needed  # widen both columns when the pane has the room
+        fits = needed <= self.value_width
+        if not fits:
+            self.text.append("a: ", style=f"bold {STYLE_A}")
+            self.text.append(level_a, style=f"bold {STYLE_A}")
+            self.text.append("   b: ", style=f"bold {STYLE_B}")
+            self.text.append(level_b + "\n", style=f"bold {STYLE_B}")
+        head_a, head_b = (f"a: {level_a}", f"b: {level_b}") if fits else ("a", "b")
         self.text.append(" " * self.label_width)
-        head_a = f"a: {level_a}"[: self.value_width - 1].ljust(self.value_width)
-        self.text.append(head_a, style=f"bold {STYLE_A}")
-        self.text.append(f"b: {level_b}"[: self.value_width - 1] + "\n", style=f"bold {STYLE_B}")
+        self.text.append(head_a.ljust(self.value_width), style=f"bold {STYLE_A}")
+        self.text.append(head_b + "\n", style=f"bold {STYLE_B}")
 
     def pair(self, label: str, value_a: str, value_b: str) -> None:
         self._label(label)
@@ -197,7 +210,7 @@ def _warnings(text: Text, row: ReviewedRow) -> None:
 
 
 def _what_changed(row: ReviewedRow) -> str:
-    """"review made on earlier data: n 48/47 -> 48/46, ratio 3.99 -> 4.10" where the review's
+    """ "review made on earlier data: n 48/47 -> 48/46, ratio 3.99 -> 4.10" where the review's
     stamp holds what it judged; a plainer line for reviews stamped before stamps did."""
     then = stamp_snapshot(row["review_fingerprint"] or "")
     if then is None:
