@@ -83,6 +83,7 @@ package, which Helsel's NADA uses), so that data without censoring give the ordi
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, fields
 from typing import NamedTuple
 
@@ -412,6 +413,19 @@ def _spread(y: FloatArray, groups: IntArray, detected: BoolArray, n_groups: int)
     return np.asarray(high > low)
 
 
+def _compress(
+    cell: IntArray, u: FloatArray, kind: IntArray
+) -> tuple[IntArray, FloatArray, IntArray, FloatArray]:
+    """Censored entries as distinct (cell, u, kind) with their counts."""
+    order = np.lexsort((u, kind, cell))
+    cell, u, kind = cell[order], u[order], kind[order]
+    new = np.ones(cell.size, dtype=bool)
+    new[1:] = (np.diff(cell) != 0) | (np.diff(kind) != 0) | (np.diff(u) != 0)
+    first = np.flatnonzero(new)
+    counts = np.diff(np.append(first, cell.size)).astype(np.float64)
+    return cell[first], u[first], kind[first], counts
+
+
 def _solve(
     u: FloatArray, kind: IntArray, cell: IntArray, k: int, n_units: int
 ) -> tuple[FloatArray, FloatArray, BoolArray, IntArray]:
@@ -419,24 +433,33 @@ def _solve(
     its covariance (units, k + 1, k + 1), convergence flags and iterations."""
     cells = n_units * k
     detected = kind == _DETECTED
-    censored = ~detected
-    c_cell, c_u, c_kind = cell[censored], u[censored], kind[censored]
-    order = np.lexsort((c_u, c_kind, c_cell))
-    c_cell, c_u, c_kind = c_cell[order], c_u[order], c_kind[order]
-    new = np.ones(c_cell.size, dtype=bool)
-    new[1:] = (np.diff(c_cell) != 0) | (np.diff(c_kind) != 0) | (np.diff(c_u) != 0)
-    first = np.flatnonzero(new)
-    counts = np.diff(np.append(first, c_cell.size))
+    censored = _compress(cell[~detected], u[~detected], kind[~detected])
+    count = np.bincount(cell[detected], minlength=cells).astype(np.float64)
+    s1 = _sum_by(cell[detected], u[detected], cells)
+    s2 = _sum_by(cell[detected], u[detected] ** 2, cells)
+    return _solve_parts((count, s1, s2), censored, k, n_units)
+
+
+def _solve_parts(
+    detected: tuple[FloatArray, FloatArray, FloatArray],
+    censored: tuple[IntArray, FloatArray, IntArray, FloatArray],
+    k: int,
+    n_units: int,
+) -> tuple[FloatArray, FloatArray, BoolArray, IntArray]:
+    """``_solve`` from the detected values' sufficient statistics per cell (count, sum of u,
+    sum of u^2) and the distinct censored entries (cell, u, kind, count)."""
+    count, s1, s2 = detected
+    c_cell, c_u, c_kind, c_weight = censored
     problem = _Problem(
-        cell=c_cell[first],
-        u=c_u[first],
-        sign=np.where(c_kind[first] == _LEFT, 1.0, -1.0),
-        weight=counts.astype(np.float64),
+        cell=c_cell,
+        u=c_u,
+        sign=np.where(c_kind == _LEFT, 1.0, -1.0),
+        weight=c_weight,
         n_units=n_units,
         k=k,
-        count=np.bincount(cell[detected], minlength=cells).astype(np.float64),
-        s1=_sum_by(cell[detected], u[detected], cells),
-        s2=_sum_by(cell[detected], u[detected] ** 2, cells),
+        count=count,
+        s1=s1,
+        s2=s2,
     )
     start = np.zeros((n_units, k + 1))
     start[:, k] = 1.0
@@ -527,6 +550,73 @@ def fit_censored_lognormal(
     be fitted get NaN and a reason; nothing is raised for them."""
     y, kind, groups = _kinds(values, censored, right, group_ids, n_groups)
     g = _groups(y, kind, groups, n_groups)
+
+    def iterate(chosen: BoolArray) -> tuple[dict[str, FloatArray], BoolArray, IntArray]:
+        return _fit_chosen(y, kind, groups, g, chosen)
+
+    return _finish(g, iterate)
+
+
+def fit_censored_summarised(
+    detected: tuple[npt.ArrayLike, npt.ArrayLike, npt.ArrayLike, npt.ArrayLike],
+    censored: tuple[npt.ArrayLike, npt.ArrayLike, npt.ArrayLike, npt.ArrayLike],
+    n_groups: int,
+) -> CensoredFit:
+    """``fit_censored_lognormal`` from what a group-by gives, without the raw values: per
+    group ``detected`` = (count, mean of the logs, sum of squared deviations of the logs,
+    whether at least two detected values differ); and the censored entries as distinct rows
+    ``censored`` = (group code, limit, kind 1 below / 2 above, how many entries). The same
+    estimates as from the raw values (the detected values enter the likelihood only through
+    these sums)."""
+    n_det = np.asarray(detected[0], dtype=np.int64).reshape(-1)
+    mean = np.asarray(detected[1], dtype=np.float64).reshape(-1)
+    ss = np.asarray(detected[2], dtype=np.float64).reshape(-1)
+    distinct = np.asarray(detected[3], dtype=bool).reshape(-1)
+    c_group = np.asarray(censored[0], dtype=np.int64).reshape(-1)
+    c_limit = np.asarray(censored[1], dtype=np.float64).reshape(-1)
+    c_kind = np.asarray(censored[2], dtype=np.int64).reshape(-1)
+    c_count = np.asarray(censored[3], dtype=np.float64).reshape(-1)
+    if c_limit.size and not (np.all(np.isfinite(c_limit)) and np.all(c_limit > 0)):
+        raise ValueError("limits must be positive and finite")
+    left = np.bincount(c_group[c_kind == _LEFT], c_count[c_kind == _LEFT], n_groups)
+    right = np.bincount(c_group[c_kind == _RIGHT], c_count[c_kind == _RIGHT], n_groups)
+    n_left, n_right = left.astype(np.int64), right.astype(np.int64)
+    n = n_det + n_left + n_right
+    g = _Groups(
+        n=n,
+        n_detected=n_det,
+        n_left=n_left,
+        n_right=n_right,
+        mean=np.where(n_det > 0, mean, np.nan),
+        ss=np.where(n_det > 0, ss, np.nan),
+        distinct=distinct,
+        reason=_reasons(n, n_det, distinct),
+    )
+    c_y = np.log(c_limit)
+
+    def iterate(chosen: BoolArray) -> tuple[dict[str, FloatArray], BoolArray, IntArray]:
+        unit_of = np.full(n_groups, -1, dtype=np.int64)
+        unit_of[chosen] = np.arange(int(chosen.sum()))
+        keep = unit_of[c_group] >= 0
+        units = unit_of[c_group[keep]]
+        centre = g.mean[chosen]
+        scale = np.sqrt(g.ss[chosen] / (g.n_detected[chosen] - 1))
+        u = (c_y[keep] - centre[units]) / scale[units]
+        # Standardised detected values: sum 0 and sum of squares n - 1, exactly.
+        count = g.n_detected[chosen].astype(np.float64)
+        stats = (count, np.zeros_like(count), count - 1)
+        parts = (units, u, c_kind[keep], c_count[keep])
+        return _from_standard(centre, scale, _solve_parts(stats, parts, 1, int(chosen.sum())))
+
+    return _finish(g, iterate)
+
+
+def _finish(
+    g: _Groups,
+    iterate: Callable[[BoolArray], tuple[dict[str, FloatArray], BoolArray, IntArray]],
+) -> CensoredFit:
+    """Closed forms for groups without censoring, ``iterate`` for the censored ones."""
+    n_groups = g.n.size
     fit = {name: np.full(n_groups, np.nan) for name in _ESTIMATES}
     converged = np.zeros(n_groups, dtype=bool)
     iterations = np.zeros(n_groups, dtype=np.int64)
@@ -537,7 +627,7 @@ def fit_censored_lognormal(
     converged[plain] = True
     chosen = (g.reason == "") & ~plain
     if chosen.any():
-        fitted, done, steps = _fit_chosen(y, kind, groups, g, chosen)
+        fitted, done, steps = iterate(chosen)
         for name, column in fitted.items():
             fit[name][chosen] = np.where(done, column, np.nan)
         converged[chosen], iterations[chosen] = done, steps
@@ -569,7 +659,16 @@ def _fit_chosen(
     scale = np.sqrt(g.ss[chosen] / (g.n_detected[chosen] - 1))
     cell = unit[member]
     u = (y[member] - centre[cell]) / scale[cell]
-    theta, c, done, iterations = _solve(u, kind[member], cell, 1, m)
+    return _from_standard(centre, scale, _solve(u, kind[member], cell, 1, m))
+
+
+def _from_standard(
+    centre: FloatArray,
+    scale: FloatArray,
+    solved: tuple[FloatArray, FloatArray, BoolArray, IntArray],
+) -> tuple[dict[str, FloatArray], BoolArray, IntArray]:
+    """Estimates and their covariance on the original log scale from the standardised fit."""
+    theta, c, done, iterations = solved
     alpha, beta = theta[:, 0], theta[:, 1]
     # (mu, sigma) = (centre + scale * alpha / beta, scale / beta); Jacobian rows (j00, j01), (0, j11)
     j00, j01, j11 = scale / beta, -scale * alpha / beta**2, -scale / beta**2

@@ -26,8 +26,8 @@ fit of each comparison and the cross-checks can take a group's entries without a
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Sequence
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -37,8 +37,8 @@ import polars as pl
 from .censored import (
     CensoredComparison,
     compare_pooled,
-    fit_censored_lognormal,
     fit_censored_pooled,
+    fit_censored_summarised,
     kaplan_meier_median,
 )
 from .entries import ABOVE
@@ -106,170 +106,226 @@ def censored_outcomes(
     return [name for name in outcomes if row[name]]
 
 
-@dataclass(frozen=True)
-class _Stack:
-    """The entries of every group of one grouping spec, sorted by group code."""
+_STATS = (
+    "n_fit",
+    "n_left",
+    "n_right",
+    "n_det",
+    "mean_det",
+    "ss_det",
+    "detected_min",
+    "detected_max",
+    "limit_low",
+    "limit_high",
+    "limit_median",
+    "half_dl_n",
+    "half_dl_mean_log",
+    "half_dl_ss_log",
+    "median_obs",
+    "lower_middle",
+)
 
-    spec: GroupSpec
-    identity: pl.DataFrame  # code -> stratum, level, outcome
-    observed: FloatArray
-    left: BoolArray
-    right: BoolArray
-    group: IntArray
-    starts: IntArray  # group code -> first index in the sorted arrays (length n_groups + 1)
 
-    @property
-    def n_groups(self) -> int:
-        return self.identity.height
+def _entry_expressions(
+    name: str, names: DerivedNames, policy: ValuePolicy, columns: Sequence[str]
+) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
+    """(observed, below a limit, above the range) of one outcome's entries: the value the
+    policy left (``names.used``) for a detected entry, the limit for a censored one; null
+    for an entry no fit takes."""
+    value = pl.col(name)
+    left = (pl.col(names.censored(name)) & (value > 0)).fill_null(False)
+    if policy.censored == "mle" and names.kind(name) in columns:
+        right = ((pl.col(names.kind(name)) == ABOVE) & (value > 0)).fill_null(False)
+    else:
+        right = pl.lit(False)
+    observed = pl.when(left | right).then(value).otherwise(pl.col(names.used(name)))
+    observed = pl.when(observed > 0).then(observed)
+    return observed, left, right
 
 
-def _stack(
+def _aggregations(
+    name: str, names: DerivedNames, policy: ValuePolicy, columns: Sequence[str]
+) -> list[pl.Expr]:
+    observed, left, right = _entry_expressions(name, names, policy, columns)
+    ok = observed.is_not_null()
+    detected = observed.filter(ok & ~left & ~right)
+    logs = detected.log()
+    limits = observed.filter(ok & left)
+    half = pl.when(left).then(observed / 2).otherwise(observed).filter(ok).log()
+    figures = {
+        "n_fit": ok.sum(),
+        "n_left": (ok & left).sum(),
+        "n_right": (ok & right).sum(),
+        "n_det": detected.count(),
+        "mean_det": logs.mean(),
+        "ss_det": (logs - logs.mean()).pow(2).sum(),
+        "detected_min": detected.min(),
+        "detected_max": detected.max(),
+        "limit_low": limits.min(),
+        "limit_high": limits.max(),
+        "limit_median": limits.median(),
+        "half_dl_n": half.count(),
+        "half_dl_mean_log": half.mean(),
+        "half_dl_ss_log": (half - half.mean()).pow(2).sum(),
+        "median_obs": observed.filter(ok).median(),
+        "lower_middle": observed.filter(ok).quantile(0.5, "lower"),
+    }
+    return [expr.alias(names.derived(name, f"cg_{stat}")) for stat, expr in figures.items()]
+
+
+def _identity(spec: GroupSpec) -> list[pl.Expr]:
+    stratum = pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)
+    return [
+        pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
+        pl.lit(spec.within, pl.Utf8).alias("within"),
+        stratum.alias("stratum"),
+        pl.col(spec.grouping).cast(pl.Utf8).alias("level"),
+    ]
+
+
+def _spec_groups(
     frame: pl.DataFrame,
     spec: GroupSpec,
     outcomes: Sequence[str],
     names: DerivedNames,
     policy: ValuePolicy,
-) -> _Stack:
-    keys = frame.select(spec.keys)
-    present = keys.select(pl.all_horizontal(pl.all().is_not_null())).to_series()
-    coded = frame.filter(present).with_columns(
-        (pl.struct(spec.keys).rank("dense").cast(pl.Int64) - 1).alias("\x1fcode")
-    )
-    levels = coded.select(*spec.keys, "\x1fcode").unique("\x1fcode").sort("\x1fcode")
-    n_levels = levels.height
-    parts = []
-    for index, name in enumerate(outcomes):
-        value = pl.col(name)
-        left = pl.col(names.censored(name)) & (value > 0)
-        if policy.censored == "mle" and names.kind(name) in frame.columns:
-            right = (pl.col(names.kind(name)) == ABOVE) & (value > 0)
-        else:
-            right = pl.lit(False)
-        observed = pl.when(left | right).then(value).otherwise(pl.col(names.used(name)))
-        parts.append(
-            coded.select(
-                observed.alias("observed"),
-                left.fill_null(False).alias("left"),
-                right.fill_null(False).alias("right"),
-                (pl.col("\x1fcode") + index * n_levels).alias("group"),
-            ).filter(pl.col("observed").is_not_null() & (pl.col("observed") > 0))
+) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """Per group (one row each, all outcomes): the figures of ``_aggregations``; and the
+    censored entries as distinct (group, outcome, limit, kind, count) rows."""
+    columns = frame.columns
+    lazy = frame.lazy().drop_nulls(spec.keys)
+    aggregations = [e for name in outcomes for e in _aggregations(name, names, policy, columns)]
+    plans = [lazy.group_by(spec.keys).agg(aggregations)]
+    for name in outcomes:
+        observed, left, right = _entry_expressions(name, names, policy, columns)
+        plans.append(
+            lazy.select(
+                *spec.keys,
+                observed.alias("limit"),
+                pl.when(left).then(1).otherwise(2).cast(pl.Int64).alias("kind"),
+                (left | right).alias("censored"),
+            )
+            .filter(pl.col("censored") & pl.col("limit").is_not_null())
+            .group_by([*spec.keys, "limit", "kind"])
+            .agg(pl.len().cast(pl.Int64).alias("count"))
+            .with_columns(pl.lit(name, pl.Utf8).alias("outcome"))
         )
-    stacked = pl.concat(parts).sort("group", maintain_order=True)
-    group = stacked["group"].to_numpy().astype(np.int64)
-    n_groups = n_levels * len(outcomes)
-    counts = np.bincount(group, minlength=n_groups)
-    starts = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-    stratum = pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)
-    identity = pl.concat(
+    wide, *censored = pl.collect_all(plans)
+    identity = _identity(spec)
+    long = pl.concat(
         [
-            levels.select(
-                pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
-                pl.lit(spec.within, pl.Utf8).alias("within"),
-                stratum.alias("stratum"),
-                pl.col(spec.grouping).cast(pl.Utf8).alias("level"),
+            wide.select(
+                *identity,
                 pl.lit(name, pl.Utf8).alias("outcome"),
+                *[pl.col(names.derived(name, f"cg_{stat}")).alias(stat) for stat in _STATS],
             )
             for name in outcomes
         ]
     )
-    return _Stack(
-        spec=spec,
-        identity=identity,
-        observed=stacked["observed"].to_numpy().astype(np.float64),
-        left=stacked["left"].to_numpy().astype(bool),
-        right=stacked["right"].to_numpy().astype(bool),
-        group=group,
-        starts=starts,
+    entries = pl.concat(
+        [part.select(*identity, "outcome", "limit", "kind", "count") for part in censored]
     )
+    return long, entries
 
 
-def _mean_and_ss(
-    y: FloatArray, group: IntArray, n_groups: int
-) -> tuple[IntArray, FloatArray, FloatArray]:
-    """Count, mean and sum of squared deviations per group (two-pass)."""
-    n = np.bincount(group, minlength=n_groups).astype(np.int64)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        mean = np.bincount(group, y, n_groups) / n
-        ss = np.bincount(group, (y - mean[group]) ** 2, n_groups)
-    return n, np.asarray(mean, dtype=np.float64), np.asarray(ss, dtype=np.float64)
+_Key = tuple[str, str | None, str | None, str, str]
 
 
-def _group_min(values: FloatArray, group: IntArray, n_groups: int) -> FloatArray:
-    out = np.full(n_groups, np.inf)
-    np.minimum.at(out, group, values)
-    return np.where(np.isfinite(out), out, np.nan)
+def _exact_medians(
+    frame: pl.DataFrame, groups: pl.DataFrame, names: DerivedNames, policy: ValuePolicy
+) -> dict[_Key, tuple[float, float]]:
+    """Kaplan–Meier medians (and "at most" values) of the groups whose middle values do not
+    all lie above their highest limit, computed on the group's entries."""
+    out: dict[_Key, tuple[float, float]] = {}
+    for grouping, within, stratum, level, outcome in groups.select(GROUP_COLUMNS).rows():
+        keys = pl.col(grouping).cast(pl.Utf8) == level
+        if within is not None:
+            keys = keys & (pl.col(within).cast(pl.Utf8) == stratum)
+        observed, left, _ = _entry_expressions(outcome, names, policy, frame.columns)
+        part = frame.filter(keys).select(observed.alias("x"), left.alias("left")).drop_nulls("x")
+        km = kaplan_meier_median(part["x"].to_numpy(), part["left"].to_numpy())
+        at_most = km.at_most if km.reason else np.nan
+        out[(grouping, within, stratum, level, outcome)] = (km.median, at_most)
+    return out
 
 
-def _group_max(values: FloatArray, group: IntArray, n_groups: int) -> FloatArray:
-    out = np.full(n_groups, -np.inf)
-    np.maximum.at(out, group, values)
-    return np.where(np.isfinite(out), out, np.nan)
-
-
-def _figures(stack: _Stack, policy: ValuePolicy) -> pl.DataFrame:
-    """The censored figures of every group of one stack that has a censored entry."""
-    m = stack.n_groups
-    observed, left, right, group = stack.observed, stack.left, stack.right, stack.group
-    n_left = np.bincount(group[left], minlength=m).astype(np.int64)
-    n_right = np.bincount(group[right], minlength=m).astype(np.int64)
-    concerned = (n_left + n_right) > 0
-    out: dict[str, npt.NDArray[np.generic]] = {}
-    if policy.censored == "mle":
-        fit = fit_censored_lognormal(observed, left, group, m, right=right)
-        out["fit_mean_log"] = fit.mu
-        out["fit_sd_log"] = fit.sigma
-        with np.errstate(divide="ignore", invalid="ignore"):
-            n = fit.n.astype(np.float64)
-            out["fit_var_mean_log"] = fit.var_mu * (n / (n - 1))
-        reason = fit.reason.astype(object)
-        reason[fit.reason == ""] = None
-        out["fit_reason"] = reason
-    else:
-        for name in ("fit_mean_log", "fit_sd_log", "fit_var_mean_log"):
-            out[name] = np.full(m, np.nan)
-        out["fit_reason"] = np.full(m, None, dtype=object)
-    half = np.log(np.where(left, observed / 2, observed))
-    half_n, half_mean, half_ss = _mean_and_ss(half, group, m)
-    detected = ~left & ~right
-    limits = np.full(m, np.nan)
-    km_median = np.full(m, np.nan)
-    at_most = np.full(m, np.nan)
-    for code in np.flatnonzero(concerned):
-        lo, hi = stack.starts[code], stack.starts[code + 1]
-        values, below = observed[lo:hi], left[lo:hi]
-        if n_left[code]:
-            limits[code] = float(np.median(values[below]))
-        km = kaplan_meier_median(values, below)
-        km_median[code], at_most[code] = km.median, (km.at_most if km.reason else np.nan)
-    out.update(
-        n_fit=np.bincount(group, minlength=m).astype(np.int64),
-        n_left=n_left,
-        n_right=n_right,
-        km_median=km_median,
-        median_at_most=at_most,
-        limit_low=_group_min(observed[left], group[left], m),
-        limit_high=_group_max(observed[left], group[left], m),
-        limit_median=limits,
-        detected_min=_group_min(observed[detected], group[detected], m),
-        half_dl_n=half_n,
-        half_dl_mean_log=half_mean,
-        half_dl_ss_log=half_ss,
-    )
-    figures = pl.DataFrame(
-        [
-            pl.Series(name, list(out[name]) if dtype == pl.Utf8 else out[name], dtype=dtype)
-            for name, dtype in CENSORED_SCHEMA.items()
-            if name in out
+def _fit_columns(groups: pl.DataFrame, entries: pl.DataFrame, mle: bool) -> list[pl.Series]:
+    """The censored ML fit of every group (NaN and no reason when the policy is not mle)."""
+    m = groups.height
+    if not mle:
+        nothing = np.full(m, np.nan)
+        return [
+            pl.Series("fit_mean_log", nothing),
+            pl.Series("fit_sd_log", nothing),
+            pl.Series("fit_var_mean_log", nothing),
+            pl.Series("fit_reason", [None] * m, dtype=pl.Utf8),
         ]
+    coded = entries.join(
+        groups.select(*GROUP_COLUMNS, "code"), on=list(GROUP_COLUMNS), nulls_equal=True
     )
-    return pl.concat([stack.identity, figures], how="horizontal").with_columns(
-        pl.col(pl.Float64).fill_nan(None)
+    fit = fit_censored_summarised(
+        (
+            groups["n_det"].to_numpy(),
+            groups["mean_det"].fill_null(np.nan).to_numpy(),
+            groups["ss_det"].fill_null(np.nan).to_numpy(),
+            (groups["detected_max"] > groups["detected_min"]).fill_null(False).to_numpy(),
+        ),
+        (
+            coded["code"].to_numpy(),
+            coded["limit"].to_numpy(),
+            coded["kind"].to_numpy(),
+            coded["count"].to_numpy(),
+        ),
+        m,
+    )
+    with np.errstate(divide="ignore", invalid="ignore"):
+        n = fit.n.astype(np.float64)
+        variance = fit.var_mu * (n / (n - 1))
+    reason: list[str | None] = [r or None for r in fit.reason.tolist()]
+    return [
+        pl.Series("fit_mean_log", fit.mu),
+        pl.Series("fit_sd_log", fit.sigma),
+        pl.Series("fit_var_mean_log", variance),
+        pl.Series("fit_reason", reason, dtype=pl.Utf8),
+    ]
+
+
+def _figures(
+    frame: pl.DataFrame,
+    spec: GroupSpec,
+    outcomes: Sequence[str],
+    names: DerivedNames,
+    policy: ValuePolicy,
+) -> pl.DataFrame:
+    """The censored figures of every group of one grouping spec (``CENSORED_SCHEMA``)."""
+    groups, entries = _spec_groups(frame, spec, outcomes, names, policy)
+    groups = groups.with_row_index("code")
+    groups = groups.with_columns(_fit_columns(groups, entries, policy.censored == "mle"))
+    concerned = (pl.col("n_left") + pl.col("n_right")) > 0
+    # Above the highest limit the Kaplan-Meier curve is the empirical one: where both middle
+    # values lie above every limit of the group, the K-M median is the ordinary median.
+    plain = (pl.col("n_left") == 0) | (pl.col("lower_middle") > pl.col("limit_high"))
+    exact = _exact_medians(frame, groups.filter(concerned & ~plain), names, policy)
+    medians = [exact.get(key, (np.nan, np.nan)) for key in groups.select(GROUP_COLUMNS).rows()]
+    groups = groups.with_columns(
+        pl.when(concerned & plain)
+        .then(pl.col("median_obs"))
+        .otherwise(pl.Series([m[0] for m in medians], dtype=pl.Float64))
+        .alias("km_median"),
+        pl.Series("median_at_most", [m[1] for m in medians], dtype=pl.Float64),
+    )
+    return (
+        groups.with_columns(pl.col(pl.Float64).fill_nan(None))
+        .select(list(CENSORED_SCHEMA))
+        .cast(CENSORED_SCHEMA)
     )
 
 
 class GroupEntries:
     """The entries of every group of the outcomes with censored entries: detected values,
-    limits of below-detection entries and (under ``mle``) above-range entries, each flagged."""
+    limits of below-detection entries and (under ``mle``) above-range entries, each flagged.
+    The per-group figures come from group-by aggregations; a group's entries are read from
+    the table when asked for (charts, cross-checks, pooled fits)."""
 
     def __init__(
         self,
@@ -281,34 +337,63 @@ class GroupEntries:
     ) -> None:
         self.policy = policy
         self.outcomes = tuple(censored_outcomes(frame, outcomes, names, policy))
-        self._stacks = (
-            [_stack(frame, spec, self.outcomes, names, policy) for spec in specs]
-            if self.outcomes
-            else []
-        )
-        self._index: dict[GroupId, tuple[_Stack, int]] = {}
-        for stack in self._stacks:
-            for code, row in enumerate(stack.identity.iter_rows()):
-                grouping, within, stratum, level, outcome = row
-                self._index[(grouping, within, stratum, level, outcome)] = (stack, code)
+        self._frame = frame
+        self._specs = list(specs)
+        self._names = names
+        self._parts: dict[GroupSpec, dict[tuple[str | None, str], pl.DataFrame]] = {}
+        self._lock = threading.Lock()
 
     def figures(self) -> pl.DataFrame:
         """One row per group of each outcome with a censored entry (``CENSORED_SCHEMA``);
         the fit, median and limit figures are filled for groups that hold such an entry."""
-        parts = [_figures(stack, self.policy) for stack in self._stacks]
-        if not parts:
+        if not self.outcomes or not self._specs:
             return pl.DataFrame(schema=CENSORED_SCHEMA)
-        return pl.concat(parts).select(list(CENSORED_SCHEMA)).cast(CENSORED_SCHEMA)
+        return pl.concat(
+            [
+                _figures(self._frame, spec, self.outcomes, self._names, self.policy)
+                for spec in self._specs
+            ]
+        )
+
+    def _partition(self, spec: GroupSpec) -> dict[tuple[str | None, str], pl.DataFrame]:
+        with self._lock:
+            if spec not in self._parts:
+                columns = self._frame.columns
+                exprs = []
+                for index, name in enumerate(self.outcomes):
+                    observed, left, right = _entry_expressions(
+                        name, self._names, self.policy, columns
+                    )
+                    exprs += [
+                        observed.alias(f"{index}x"),
+                        left.alias(f"{index}l"),
+                        right.alias(f"{index}r"),
+                    ]
+                frame = self._frame.select(*spec.keys, *exprs).drop_nulls(spec.keys)
+                parts = frame.partition_by(spec.keys, as_dict=True, include_key=False)
+                self._parts[spec] = {
+                    ((str(key[0]), str(key[1])) if spec.within else (None, str(key[0]))): part
+                    for key, part in parts.items()
+                }
+            return self._parts[spec]
 
     def entries(self, group: GroupId) -> tuple[FloatArray, BoolArray, BoolArray] | None:
         """(values, below a limit, above the range) of one group; None for a group of an
         outcome without censored entries."""
-        found = self._index.get(group)
-        if found is None:
+        grouping, within, stratum, level, outcome = group
+        spec = GroupSpec(grouping, within)
+        if outcome not in self.outcomes or spec not in self._specs:
             return None
-        stack, code = found
-        lo, hi = stack.starts[code], stack.starts[code + 1]
-        return stack.observed[lo:hi], stack.left[lo:hi], stack.right[lo:hi]
+        part = self._partition(spec).get((stratum, level))
+        if part is None:
+            return None
+        index = self.outcomes.index(outcome)
+        chosen = part.select(f"{index}x", f"{index}l", f"{index}r").drop_nulls(f"{index}x")
+        return (
+            chosen[f"{index}x"].to_numpy().astype(np.float64),
+            chosen[f"{index}l"].to_numpy().astype(bool),
+            chosen[f"{index}r"].to_numpy().astype(bool),
+        )
 
     def pooled(
         self, pairs: Sequence[tuple[GroupId, GroupId]], confidence: float

@@ -445,3 +445,38 @@ def test_a_fit_stopped_before_convergence_is_flagged_not_reported(monkeypatch):
     assert list(fit.reason[:2]) == [censored.NOT_CONVERGED] * 2
     assert np.isnan(fit.mu[:2]).all() and not fit.converged[:2].any()
     assert fit.mu[2] == pytest.approx(np.mean(np.log([1.0, 2.0, 4.0])), rel=1e-15)
+
+
+def test_fit_from_group_by_sums_equals_the_fit_from_the_values():
+    """The detected values enter the likelihood only through their count, mean and sum of
+    squares of the logs, and censored entries sharing a limit only through their count
+    (algebra of the normal likelihood, common practice): fitting from those sums, as the
+    scan does, gives the fit from the values (itself checked against lifelines above)."""
+    from foldsift.stats.censored import fit_censored_lognormal, fit_censored_summarised
+
+    rng = np.random.default_rng(20261202)
+    groups = np.repeat(np.arange(6), 40)
+    x = np.exp(rng.normal(1.0 + 0.2 * groups, 0.8))
+    limit = np.array([1.5, 2.5, 4.0])[rng.integers(0, 3, groups.size)]
+    left = x < limit
+    right = (x > 12) & ~left
+    values = np.where(left, limit, np.where(right, 12.0, x))
+    raw = fit_censored_lognormal(values, left, groups, 6, right=right)
+    detected = ~left & ~right
+    logs = np.log(values)
+    count = np.bincount(groups[detected], minlength=6)
+    mean = np.bincount(groups[detected], logs[detected], 6) / count
+    ss = np.bincount(groups[detected], (logs[detected] - mean[groups[detected]]) ** 2, 6)
+    kinds = np.where(left, 1, 2)
+    censored = ~detected
+    keys, counts = np.unique(
+        np.stack([groups[censored], values[censored], kinds[censored]]), axis=1, return_counts=True
+    )
+    summarised = fit_censored_summarised(
+        (count, mean, ss, np.ones(6, dtype=bool)),
+        (keys[0].astype(int), keys[1], keys[2].astype(int), counts),
+        6,
+    )
+    for name in ("mu", "sigma", "var_mu", "var_sigma", "cov_mu_sigma"):
+        np.testing.assert_allclose(getattr(summarised, name), getattr(raw, name), rtol=1e-9)
+    assert (summarised.n == raw.n).all() and (summarised.n_left == raw.n_left).all()

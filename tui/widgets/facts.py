@@ -240,18 +240,33 @@ def _review(text: Text, row: ReviewedRow) -> None:
         text.append(visible(row["note"], lines=True) + "\n")
 
 
+def _section(text: Text, title: str) -> None:
+    """A plain section title: the facts are grouped by what they are about."""
+    text.append(f"{title}\n", style="bold underline")
+
+
 def facts_text(
     row: ReviewedRow, band: tuple[float, float], check: RobustCheck | None, width: int = 80
 ) -> Text:
-    """The facts as one Text; ``width`` narrows the columns so that rows fit a small pane."""
+    """The facts as one Text, the finding first: its sentence and its caveats (warnings),
+    then the estimate and its uncertainty, then the two groups side by side, then the
+    cross-checks and the review. ``width`` narrows the columns to fit a small pane."""
     text = Text()
-    text.append(visible(finding(row)) + "\n\n", style="bold")
-    table = _Table(text, width)
-    _groups(table, row)
-    text.append("\n")
-    _estimates(table, row, band)
-    _cross_checks(table, row, check)
-    text.append("\n")
+    text.append(visible(finding(row)) + "\n", style="bold")
+    text.append("b: " + visible(row["level_b"]), style=f"bold {STYLE_B}")
+    text.append(" over ")
+    text.append("a: " + visible(row["level_a"]), style=f"bold {STYLE_A}")
+    text.append(" (the reference)\n\n")
     _warnings(text, row)
     _review(text, row)
+    text.append("\n")
+    table = _Table(text, width)
+    _section(text, "the estimate")
+    _estimates(table, row, band)
+    text.append("\n")
+    _section(text, "the two groups")
+    _groups(table, row)
+    text.append("\n")
+    _section(text, "cross-checks")
+    _cross_checks(table, row, check)
     return make_visible(text)
