@@ -143,32 +143,53 @@ def _entry_expressions(
     return observed, left, right
 
 
-def _aggregations(
+def _columns(
     name: str, names: DerivedNames, policy: ValuePolicy, columns: Sequence[str]
-) -> list[pl.Expr]:
+) -> tuple[list[pl.Expr], list[pl.Expr]]:
+    """Working columns of one outcome, made once so the aggregations read plain columns:
+    the entry a fit takes, its flags, the logs of detected values, the limits of entries
+    below them and the logs with DL/2 put in."""
     observed, left, right = _entry_expressions(name, names, policy, columns)
-    ok = observed.is_not_null()
-    detected = observed.filter(ok & ~left & ~right)
-    logs = detected.log()
-    limits = observed.filter(ok & left)
-    half = pl.when(left).then(observed / 2).otherwise(observed).filter(ok).log()
+
+    def column(role: str) -> str:
+        return names.derived(name, f"cg_{role}")
+
+    x = pl.col(column("x"))
+    is_left, is_right = pl.col(column("left")), pl.col(column("right"))
+    return [
+        observed.alias(column("x")),
+        left.alias(column("left")),
+        right.alias(column("right")),
+    ], [
+        pl.when(~is_left & ~is_right).then(x.log()).alias(column("logdet")),
+        pl.when(is_left & x.is_not_null()).then(x).alias(column("limit")),
+        pl.when(is_left).then(x / 2).otherwise(x).log().alias(column("loghalf")),
+    ]
+
+
+def _aggregations(name: str, names: DerivedNames) -> list[pl.Expr]:
+    def column(role: str) -> pl.Expr:
+        return pl.col(names.derived(name, f"cg_{role}"))
+
+    x, logdet, limit, half = column("x"), column("logdet"), column("limit"), column("loghalf")
+    ok = x.is_not_null()
     figures = {
-        "n_fit": ok.sum(),
-        "n_left": (ok & left).sum(),
-        "n_right": (ok & right).sum(),
-        "n_det": detected.count(),
-        "mean_det": logs.mean(),
-        "ss_det": (logs - logs.mean()).pow(2).sum(),
-        "detected_min": detected.min(),
-        "detected_max": detected.max(),
-        "limit_low": limits.min(),
-        "limit_high": limits.max(),
-        "limit_median": limits.median(),
+        "n_fit": x.count(),
+        "n_left": (ok & column("left")).sum(),
+        "n_right": (ok & column("right")).sum(),
+        "n_det": logdet.count(),
+        "mean_det": logdet.mean(),
+        "ss_det": logdet.var(ddof=0) * logdet.count(),
+        "detected_min": logdet.min().exp(),
+        "detected_max": logdet.max().exp(),
+        "limit_low": limit.min(),
+        "limit_high": limit.max(),
+        "limit_median": limit.median(),
         "half_dl_n": half.count(),
         "half_dl_mean_log": half.mean(),
-        "half_dl_ss_log": (half - half.mean()).pow(2).sum(),
-        "median_obs": observed.filter(ok).median(),
-        "lower_middle": observed.filter(ok).quantile(0.5, "lower"),
+        "half_dl_ss_log": half.var(ddof=0) * half.count(),
+        "median_obs": x.median(),
+        "lower_middle": x.quantile(0.5, "lower"),
     }
     return [expr.alias(names.derived(name, f"cg_{stat}")) for stat, expr in figures.items()]
 
@@ -194,8 +215,12 @@ def _spec_groups(
     censored entries as distinct (group, outcome, limit, kind, count) rows."""
     columns = frame.columns
     lazy = frame.lazy().drop_nulls(spec.keys)
-    aggregations = [e for name in outcomes for e in _aggregations(name, names, policy, columns)]
-    plans = [lazy.group_by(spec.keys).agg(aggregations)]
+    made = [_columns(name, names, policy, columns) for name in outcomes]
+    prepared = lazy.select(*spec.keys, *[e for first, _ in made for e in first]).with_columns(
+        [e for _, second in made for e in second]
+    )
+    aggregations = [e for name in outcomes for e in _aggregations(name, names)]
+    plans = [prepared.group_by(spec.keys).agg(aggregations)]
     for name in outcomes:
         observed, left, right = _entry_expressions(name, names, policy, columns)
         plans.append(
