@@ -1,22 +1,45 @@
-"""One plain sentence per comparison, stating the multiplicative finding."""
+"""One plain sentence per comparison, stating the multiplicative finding and its largest
+caveat in words. The sentence is shown in the detail pane and exported, so it holds no
+markup; every number in it is written by ``stats.formatting`` as the detail writes it."""
 
 from __future__ import annotations
 
-from typing import cast
+from collections.abc import Callable, Mapping
+from typing import Any, cast
 
 import polars as pl
 
-from .columns import SENTENCE, ComparisonRow
-from .diagnostics import SYMMETRY_WARNINGS
+from .columns import SENTENCE, ComparisonRow, Side, side
+from .diagnostics import LOG_SKEW_MIN_N, SMALL_N, SYMMETRY_WARNINGS
 from .formatting import (
-    interval_text,
+    MISSING,
+    any_fold,
+    interval_words,
     level_text,
+    number_text,
     p_text,
-    ratio_text,
+    ratio_words,
     readable_outcome,
 )
+from .vocabulary import WarningName
 
-__all__ = ["finding", "group_name", "readable_outcome", "sentence_column", "stratum_phrase"]
+__all__ = [
+    "CAVEAT_ORDER",
+    "MEDIAN_MIN_N",
+    "caveat",
+    "finding",
+    "group_name",
+    "readable_outcome",
+    "says_median",
+    "sentence_column",
+    "stratum_phrase",
+]
+
+#: Both groups need this many values before the sentence speaks of medians: below it the
+#: skewness check does not run, so the symmetry of the logs is untested.
+MEDIAN_MIN_N = LOG_SKEW_MIN_N
+
+SIDES: tuple[Side, Side] = ("a", "b")
 
 
 def group_name(grouping: str, level: str) -> str:
@@ -30,6 +53,17 @@ def stratum_phrase(row: ComparisonRow) -> str:
     if row["within"] is None:
         return ""
     return f", within {row['within']} {row['stratum']}"
+
+
+def says_median(row: ComparisonRow) -> bool:
+    """Whether the sentence may call the ratio one of medians: none of the symmetry
+    warnings (``diagnostics.SYMMETRY_WARNINGS``: log-skew, log-not-normal, median-vs-gm,
+    spread-differs) applies and both groups have at least ``MEDIAN_MIN_N`` (8) values.
+    The ratio of geometric means equals the ratio of medians when each group's logs are
+    symmetric; otherwise the sentence says "geometric mean"."""
+    if set(row["warnings"]) & set(SYMMETRY_WARNINGS):
+        return False
+    return min(row["n_a"], row["n_b"]) >= MEDIAN_MIN_N
 
 
 def _not_comparable(row: ComparisonRow, outcome: str, group_a: str, group_b: str) -> str:
@@ -70,16 +104,29 @@ def censored_phrase(row: ComparisonRow) -> str:
     return f"{share}, {how}" if how else share
 
 
+def times_words(value: float | None, folded: bool | None = None) -> str:
+    """A ratio as a multiplier in words: ``2.30×`` in the decimal range, ``5,300× lower``
+    beyond or when ``folded`` (``formatting.ratio_words``)."""
+    words = ratio_words(value, folded)
+    if value is None or words == MISSING or "×" in words:
+        return words
+    return f"{words}×"
+
+
 def _excludes_one(low: float | None, high: float | None) -> bool:
     return low is not None and high is not None and (low > 1 or high < 1)
 
 
 def _substitution_contrast(row: ComparisonRow) -> str:
     """What DL/2 substitution would have said instead, for a censoring-sensitive finding."""
+    if row["half_dl_ratio"] is None:
+        return "the finding depends on how the below-detection entries are treated"
+    half_dl = (row["half_dl_ratio"], row["half_dl_ci_low"], row["half_dl_ci_high"])
     half = (
         f"with half the detection limit put in instead, the ratio would be "
-        f"{ratio_text(row['half_dl_ratio'])}× "
-        f"({interval_text(row['half_dl_ci_low'], row['half_dl_ci_high'], ' to ')})"
+        f"{times_words(row['half_dl_ratio'], any_fold(*half_dl))} "
+        f"({level_text(row['confidence'])} CI "
+        f"{interval_words(row['half_dl_ci_low'], row['half_dl_ci_high'])})"
     )
     fitted = _excludes_one(row["ci_low"], row["ci_high"])
     substituted = _excludes_one(row["half_dl_ci_low"], row["half_dl_ci_high"])
@@ -90,45 +137,194 @@ def _substitution_contrast(row: ComparisonRow) -> str:
             f"the equivalence class would be {row['half_dl_band_class'] or 'none'} "
             f"instead of {row['band_class'] or 'none'}"
         )
-    return f"Sensitive to the below-detection entries: {half}, and {change}."
+    return f"the finding is sensitive to the below-detection entries; {half}, and {change}"
+
+
+# -- caveats: one phrase per warning, from the row's own figures ------------------------------
+
+_Figures = Mapping[str, Any]
+
+
+def _names(row: _Figures) -> dict[Side, str]:
+    return {s: group_name(row["grouping"], row[side("level", s)]) for s in SIDES}
+
+
+def _larger(row: _Figures, figure: str, key: Callable[[Any], float] = float) -> Side:
+    """The side whose ``figure`` is larger by ``key`` (a missing figure counts as 0)."""
+    values = {s: row[side(figure, s)] for s in SIDES}
+    return max(SIDES, key=lambda s: key(values[s]) if values[s] is not None else 0.0)
+
+
+def _small_n(row: _Figures) -> str:
+    names = _names(row)
+    small = [s for s in SIDES if row[side("n", s)] < SMALL_N]
+    parts = [f"{row[side('n', s)]} values in {names[s]}" for s in small[:1]]
+    parts += [f"{row[side('n', s)]} in {names[s]}" for s in small[1:]]
+    return "only " + " and ".join(parts)
+
+
+def _not_fitted(row: _Figures) -> str:
+    names = _names(row)
+    unfitted = [
+        f"{names[s]} ({row[side('fit_reason', s)]})" for s in SIDES if row[side("fit_reason", s)]
+    ]
+    return "no censored fit was made for " + " and ".join(unfitted)
+
+
+def _no_limit(row: _Figures) -> str:
+    which = _larger(row, "n_no_limit")
+    count = row[side("n_no_limit", which)]
+    return (
+        f"{count} below-detection entries without a limit in {_names(row)[which]} were left "
+        "out, so that group looks higher than it is"
+    )
+
+
+def _excluded_share(row: _Figures) -> str:
+    def share(s: Side) -> float:
+        left_out = row[side("n_excluded", s)]
+        total = left_out + row[side("n", s)]
+        return float(left_out / total) if total else 0.0
+
+    which = max(SIDES, key=share)
+    return (
+        f"{share(which):.0%} of the entries of {_names(row)[which]} were left out (zero, "
+        "negative or below detection), so the rest may not represent that group"
+    )
+
+
+def _spread(row: _Figures) -> str:
+    names = _names(row)
+    a, b = (f"{number_text(row[side('sd_log', s)], 2)} in {names[s]}" for s in SIDES)
+    return (
+        f"the spread differs between the groups (log SD {a} vs {b}), so one multiplier "
+        "does not describe the change"
+    )
+
+
+def _median_vs_gm(row: _Figures) -> str:
+    return (
+        f"the ratio of sample medians ({times_words(row['median_ratio'])}) disagrees with "
+        "the ratio of geometric means beyond their uncertainty"
+    )
+
+
+def _censored_share(row: _Figures) -> str:
+    which = _larger(row, "censored_share")
+    share = row[side("censored_share", which)] or 0.0
+    consequence = {
+        "censored ML": "the fit leans on the lognormal shape for the part it cannot see",
+        "nondetects left out": "leaving them out makes that group look higher",
+    }.get(row["method"], "the substituted values weigh on the result")
+    return f"{share:.0%} of {_names(row)[which]} is below detection; {consequence}"
+
+
+def _limits(row: _Figures) -> str:
+    def limits(s: Side) -> str:
+        low, high = row[side("limit_low", s)], row[side("limit_high", s)]
+        if low is None:
+            return "none"
+        return (
+            number_text(low, 2)
+            if high in (None, low)
+            else f"{number_text(low, 2)}–{number_text(high, 2)}"
+        )
+
+    names = _names(row)
+    text = f"the detection limits differ ({names['a']} {limits('a')}, {names['b']} {limits('b')})"
+    if row["method"] == "censored ML":
+        return text + "; the censored fit allows for that, a substitution would not"
+    return text + ", which biases a comparison with substituted values"
+
+
+def _above_range(row: _Figures) -> str:
+    which = _larger(row, "n_above_range")
+    how = "fitted as lying above it" if row["method"] == "censored ML" else "used at its top"
+    count = row[side("n_above_range", which)]
+    return f"{count} entries of {_names(row)[which]} are above the measuring range ({how})"
+
+
+def _skew(row: _Figures) -> str:
+    which = _larger(row, "skew_log", key=abs)
+    skew = number_text(row[side("skew_log", which)], 2)
+    return f"the logs of {_names(row)[which]} are skewed (skewness {skew})"
+
+
+def _not_normal(row: _Figures) -> str:
+    which = _larger(row, "shapiro_p", key=lambda p: -p)
+    p = p_text(row[side("shapiro_p", which)], "p")
+    return f"the logs of {_names(row)[which]} do not look normal (Shapiro-Wilk {p})"
+
+
+def _units_apart(row: _Figures) -> str:
+    return "the analyte was also reported in a unit that does not convert; those are apart"
+
+
+#: Warnings in the order of how much they weigh on the stated ratio, the largest first, with
+#: the phrase that says each in words.
+CAVEAT_ORDER: dict[WarningName, Callable[[_Figures], str]] = {
+    "censoring-sensitive": lambda row: _substitution_contrast(cast(ComparisonRow, row)),
+    "not-fitted": _not_fitted,
+    "small-n": _small_n,
+    "no-limit": _no_limit,
+    "excluded-share": _excluded_share,
+    "spread-differs": _spread,
+    "median-vs-gm": _median_vs_gm,
+    "censored-share": _censored_share,
+    "limits-differ": _limits,
+    "above-range": _above_range,
+    "log-skew": _skew,
+    "log-not-normal": _not_normal,
+    "units-apart": _units_apart,
+}
+
+
+def caveat(row: ComparisonRow) -> str:
+    """The largest caveat of a comparison in words, then how many other warnings it has:
+    "Main caveat: only 4 values in field x. 1 other warning."; "" with no warning."""
+    present = [name for name in CAVEAT_ORDER if name in row["warnings"]]
+    if not present:
+        return ""
+    text = f"Main caveat: {CAVEAT_ORDER[present[0]](cast(_Figures, row))}."
+    others = len(row["warnings"]) - 1
+    if others:
+        text += f" {others} other warning{'s' if others > 1 else ''}."
+    return text
 
 
 def finding(row: ComparisonRow) -> str:
-    """The sentence for one row of the comparisons frame."""
+    """The sentence for one row of the comparisons frame: the ratio of geometric means as a
+    multiplier (called a ratio of medians only when ``says_median``), its CI, test, p and
+    q, whether the interval includes 1, and the largest caveat (``caveat``)."""
     outcome = readable_outcome(row["outcome"])
     group_b = group_name(row["grouping"], row["level_b"])
     group_a = group_name(row["grouping"], row["level_a"])
     ratio = row["ratio"]
     if ratio is None:
         return _not_comparable(row, outcome, group_a, group_b)
-    doubtful = sorted(set(row["warnings"]) & set(SYMMETRY_WARNINGS))
     test = "Welch" if row["test"] == "welch" else "pooled"
     censored = censored_phrase(row)
     if row["method"] == "censored ML":
         basis = f"{censored}; {test} t on the fitted log means"
     else:
         basis = f"{censored}; {test} t-test on logs" if censored else f"{test} t-test on logs"
+    median = says_median(row)
+    what = "ratio of geometric means, logs symmetric; " if median else ""
     detail = (
-        f"{level_text(row['confidence'])} CI {interval_text(row['ci_low'], row['ci_high'], ' to ')}; "
+        f"{what}{level_text(row['confidence'])} CI {interval_words(row['ci_low'], row['ci_high'])}; "
         f"{basis}, {p_text(row['p_value'], 'p')}, {p_text(row['q_bh'], 'q')}"
     )
-    measure = "Geometric-mean" if doubtful else "Median"
+    folded = any_fold(ratio, row["ci_low"], row["ci_high"])
     text = (
-        f"{measure} {outcome} in {group_b} is {ratio_text(ratio)}× that in {group_a}"
+        f"The {'median' if median else 'geometric mean'} {outcome} in {group_b} is "
+        f"{times_words(ratio, folded)} {'than in' if folded else 'that in'} {group_a}"
         f"{stratum_phrase(row)} ({detail})."
     )
     low, high = row["ci_low"], row["ci_high"]
     if low is not None and high is not None and low <= 1 <= high:
         text += " The interval includes 1: no clear difference."
-    if "censoring-sensitive" in row["warnings"] and row["half_dl_ratio"] is not None:
-        text += " " + _substitution_contrast(row)
-    if doubtful:
-        text += (
-            " Read it as a ratio of geometric means, not of medians (see the warnings: "
-            + ", ".join(doubtful)
-            + ")."
-        )
-    return text
+    more = caveat(row)
+    return f"{text} {more}" if more else text
 
 
 def sentence_column(frame: pl.DataFrame) -> pl.Series:

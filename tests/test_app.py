@@ -25,7 +25,13 @@ from foldsift.stats.sentence import finding, readable_outcome
 from foldsift.tui.app import FoldsiftApp
 from foldsift.tui.cli import main as cli_main
 from foldsift.tui.export import settings_path
-from foldsift.tui.screens.dialogs import ConfirmScreen, ExportScreen, NoteScreen, TextScreen
+from foldsift.tui.screens.dialogs import (
+    ConfirmScreen,
+    ExportScreen,
+    NoteScreen,
+    TextScreen,
+    UnsavedNoteScreen,
+)
 from foldsift.tui.screens.review import ReviewScreen
 from foldsift.tui.store import ReviewStore
 from foldsift.tui.widgets.comparison_list import COLUMNS, SEPARATOR, SORT_NAMES, ComparisonList
@@ -419,12 +425,14 @@ async def test_note_editor_types_saves_and_cancels(tmp_path: Path) -> None:
         await until(pilot, lambda: not isinstance(app.screen, NoteScreen), "editor closed")
         assert session(app).store.get(key).note == 'two lines, "quoted", ±2 SD\nsecond line'
 
-        # Escape throws the edit away.
+        # Escape asks about the changed text; d throws the edit away.
         await pilot.press("n")
         await until(pilot, lambda: isinstance(app.screen, NoteScreen), "note editor third")
         app.screen.query_one(TextArea).text = "discard me"
         await pilot.press("escape")
-        await until(pilot, lambda: not isinstance(app.screen, NoteScreen), "editor cancelled")
+        await until(pilot, lambda: isinstance(app.screen, UnsavedNoteScreen), "asked")
+        await pilot.press("d")
+        await until(pilot, lambda: isinstance(app.screen, ReviewScreen), "editor cancelled")
         assert session(app).store.get(key).note == 'two lines, "quoted", ±2 SD\nsecond line'
 
         # Saving an empty note removes it.
@@ -479,6 +487,9 @@ async def test_reviews_survive_closing_and_reopening(tmp_path: Path) -> None:
 
 
 async def test_reviews_of_an_earlier_version_of_the_data_are_marked(tmp_path: Path) -> None:
+    """A review is marked as made on earlier data only when its own comparison changed: one
+    sodium value of a brook_end core changes the two sodium comparisons with brook_end that
+    were reviewed, not the copper one (each review carries a stamp of its comparison)."""
     data = tmp_path / "soils.csv"
     shutil.copyfile(demo_path(), data)
     async with running(tmp_path, data) as (app, pilot):
@@ -487,15 +498,25 @@ async def test_reviews_of_an_earlier_version_of_the_data_are_marked(tmp_path: Pa
         await press_and_settle(pilot, "down")
         fresh_key = listing(app).current_key
         await press_and_settle(pilot, "2")
+        await press_and_settle(pilot, "down")
+        other_key = listing(app).current_key
+        await press_and_settle(pilot, "space")
         assert "earlier version" not in status(app)
+        rows = {row["key"]: row for row in session(app).rows.iter_rows(named=True)}
+        assert rows[reviewed_key]["outcome"] == rows[fresh_key]["outcome"] == "sodium_mg_per_kg"
+        assert "brook_end" in (rows[reviewed_key]["level_a"], rows[reviewed_key]["level_b"])
+        assert "brook_end" in (rows[fresh_key]["level_a"], rows[fresh_key]["level_b"])
+        assert rows[other_key]["outcome"] != "sodium_mg_per_kg"
         old_fingerprint = session(app).result.source.fingerprint
 
-    # Change one value of one sample in the copy.
+    # Change the sodium value of one brook_end core in the copy.
     lines = data.read_text().splitlines(keepends=True)
-    cells = lines[1].split(",")
-    assert cells[3] == "44.4"
-    cells[3] = "45.4"
-    lines[1] = ",".join(cells)
+    header = lines[0].rstrip("\n").split(",")
+    column = header.index("sodium_mg_per_kg")
+    index = next(i for i, line in enumerate(lines) if ",brook_end," in line)
+    cells = lines[index].split(",")
+    cells[column] = str(float(cells[column]) + 1.0)
+    lines[index] = ",".join(cells)
     data.write_text("".join(lines))
 
     async with running(tmp_path, data) as (app, pilot):
@@ -507,12 +528,13 @@ async def test_reviews_of_an_earlier_version_of_the_data_are_marked(tmp_path: Pa
         rows = {row["key"]: row for row in session(app).rows.iter_rows(named=True)}
         assert rows[reviewed_key]["flagged"] and rows[reviewed_key]["decision"] == "keep"
         assert rows[fresh_key]["decision"] == "doubt"
-        # The filter word finds them and the detail says so.
+        assert rows[other_key]["flagged"] and not rows[other_key]["on_earlier_data"]
+        # The filter word finds them and the detail says what changed.
         review(app).query_one("#filter", Input).value = "earlier"
         await pilot.pause()
         assert sorted(shown(app)["key"].to_list()) == sorted(earlier)
         await until(pilot, lambda: finding(current(app)) in sentence(app), "earlier row")
-        assert "earlier version of the data file" in facts(app)
+        assert "review made on earlier data: ratio" in facts(app)
         # Reviewing the row again on this data clears its mark.
         review(app).query_one("#filter", Input).value = ""
         await pilot.pause()
@@ -545,7 +567,7 @@ async def test_export_round_trip_matches_the_scan(tmp_path: Path, demo_scan) -> 
         await pilot.press("ctrl+s")
         await until(pilot, lambda: not isinstance(app.screen, NoteScreen), "editor closed")
 
-        await export_via_dialog(app, pilot, rows="all", name="everything")
+        await export_via_dialog(app, pilot, rows="all", name="everything", columns="full")
         target = tmp_path / "everything.csv"
         await until(pilot, lambda: target.exists(), "export written")
         assert isinstance(app.screen, ReviewScreen)
@@ -590,7 +612,7 @@ async def test_export_of_flagged_and_shown_rows(tmp_path: Path) -> None:
         flagged = set(session(app).rows.filter(pl.col("flagged"))["key"])
         assert len(flagged) == 2
         # Default choice: flagged rows, default file name in the export folder.
-        await export_via_dialog(app, pilot)
+        await export_via_dialog(app, pilot, columns="full")
         default = tmp_path / "marrowby_soils-findings.csv"
         await until(pilot, lambda: default.exists(), "default export")
         assert set(pl.read_csv(default)["key"]) == flagged
@@ -599,7 +621,7 @@ async def test_export_of_flagged_and_shown_rows(tmp_path: Path) -> None:
         await pilot.pause()
         listing(app).focus()
         visible = set(shown(app)["key"])
-        await export_via_dialog(app, pilot, rows="shown", name="cadmium-rows")
+        await export_via_dialog(app, pilot, rows="shown", name="cadmium-rows", columns="full")
         target = tmp_path / "cadmium-rows.csv"
         await until(pilot, lambda: target.exists(), "shown export")
         exported = pl.read_csv(target)
@@ -615,7 +637,7 @@ async def test_export_asks_before_replacing_a_file(tmp_path: Path) -> None:
     async with running(tmp_path) as (app, pilot):
         await press_and_settle(pilot, "space")
         first_key = listing(app).current_key
-        await export_via_dialog(app, pilot)
+        await export_via_dialog(app, pilot, columns="full")
         await until(pilot, lambda: target.exists(), "first export")
         before = (target.read_bytes(), settings_path(target).read_bytes())
         mtime = target.stat().st_mtime_ns
@@ -623,7 +645,7 @@ async def test_export_asks_before_replacing_a_file(tmp_path: Path) -> None:
         # A second flag, so a replaced file would differ.
         await press_and_settle(pilot, "down", "space")
         second_key = listing(app).current_key
-        await export_via_dialog(app, pilot)
+        await export_via_dialog(app, pilot, columns="full")
         await until(pilot, lambda: isinstance(app.screen, ConfirmScreen), "overwrite question")
         assert "exists" in str(app.screen.query_one(".dialog-title").render())
         await pilot.press("n")
@@ -633,7 +655,7 @@ async def test_export_asks_before_replacing_a_file(tmp_path: Path) -> None:
         assert target.stat().st_mtime_ns == mtime
         assert set(pl.read_csv(target)["key"]) == {first_key}
 
-        await export_via_dialog(app, pilot)
+        await export_via_dialog(app, pilot, columns="full")
         await until(pilot, lambda: isinstance(app.screen, ConfirmScreen), "asked again")
         await pilot.press("y")
         await until(pilot, lambda: set(pl.read_csv(target)["key"]) != {first_key}, "replaced")
@@ -666,6 +688,7 @@ async def test_command_line_export_after_reviewing(
     reviews = tmp_path / "r.sqlite"
     out = tmp_path / "cli.csv"
     args = ["export", str(demo_path()), "--reviews", str(reviews), "--out", str(out)]
+    args += ["--columns", "full"]
     assert cli_main(args) == 0
     assert "wrote 2 rows" in capsys.readouterr().err
     exported = pl.read_csv(out)

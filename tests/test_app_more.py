@@ -201,7 +201,15 @@ def test_reviews_made_in_the_app_survive_sigkill(tmp_path: Path) -> None:
     assert review.flagged is True
     assert review.decision == "doubt"
     assert review.note == CHILD_NOTE
-    assert review.on_earlier_data is False, "stamped with the fingerprint of this file"
+    # Stamped with its own comparison's stamp on this data (tui.session.comparison_stamps).
+    from foldsift.stats.load import load_table
+    from foldsift.stats.scan import run_scan
+    from foldsift.tui.session import comparison_stamps
+    from foldsift.tui.store import stamp_identity
+
+    result = run_scan(load_table(data))
+    stamp = comparison_stamps(result.comparisons, result.settings)[key]
+    assert stamp_identity(review.fingerprint) == stamp_identity(stamp)
     assert [r.key for r in everything] == [key]
     # The explicit review path was used: nothing beside the data or under XDG_DATA_HOME.
     assert not (tmp_path / "soils.csv.reviews.sqlite").exists()
@@ -232,7 +240,7 @@ async def test_key_capital_b_cross_checks_every_shown_comparison(
         await pilot.pause()
         assert set(checks) == keys, "only and all the shown comparisons"
         assert f"cross-checks done for {len(keys)} comparison(s)" in status(app)
-        await export_via_dialog(app, pilot, rows="shown", name="copper")
+        await export_via_dialog(app, pilot, rows="shown", name="copper", columns="full")
         target = tmp_path / "copper.csv"
         await until(pilot, lambda: target.exists(), "export of the shown rows")
 
@@ -343,10 +351,10 @@ async def test_export_of_decided_rows(tmp_path: Path) -> None:
         await pilot.press("x")
         await until(pilot, lambda: isinstance(app.screen, ExportScreen), "export dialog")
         label = str(app.screen.query_one("#rows-decided").label)
-        assert "decision (2)" in label, label
+        assert "decided (2)" in label, label
         await pilot.press("escape")
         await until(pilot, lambda: isinstance(app.screen, ReviewScreen), "dialog closed")
-        await export_via_dialog(app, pilot, rows="decided", name="decided")
+        await export_via_dialog(app, pilot, rows="decided", name="decided", columns="full")
         target = tmp_path / "decided.csv"
         await until(pilot, lambda: target.exists(), "export of the decided rows")
         assert "exported 2 row(s)" in status(app)

@@ -23,7 +23,7 @@ from foldsift.stats.scan import ScanSettings, run_scan
 from foldsift.tui.filtering import FilterError, parse_filter
 from foldsift.tui.session import ReviewSession, SessionOptions
 from foldsift.tui.widgets.facts import facts_text
-from foldsift.tui.widgets.histograms import back_to_back
+from foldsift.tui.widgets.histograms import STYLE_A, STYLE_B, Group, draw_groups
 
 SEED = 20261202
 
@@ -169,12 +169,12 @@ def test_session_cross_check_adds_peto_prentice_for_censored_rows(tmp_path):
 
 
 def test_chart_marks_the_detection_limits():
-    """The limits widen the axis to include them and are drawn as lines (plotext output)."""
+    """The limits widen the axis to include them and are marked in their group's strip."""
     rng = np.random.default_rng(SEED)
     a, b = np.exp(rng.normal(1, 0.3, 50)), np.exp(rng.normal(1.2, 0.3, 50))
-    plain = back_to_back(a, b, log_scale=True, width=80, height=10, title="t").plain
-    marked = back_to_back(
-        a, b, log_scale=True, width=80, height=10, title="t", limits=np.array([0.2])
-    ).plain
+    group_a = Group("a", a, STYLE_A)
+    plain = draw_groups(group_a, Group("b", b, STYLE_B), width=80, height=10).text.plain
+    limited = Group("b", b, STYLE_B, limits=np.array([0.2]))
+    marked = draw_groups(group_a, limited, width=80, height=10).text.plain
     assert marked != plain
     assert "0.2" in marked  # the axis now reaches down to the limit

@@ -480,7 +480,7 @@ def test_censoring_sensitive_when_dl2_and_ml_disagree():
     assert row["half_dl_ratio"] == pytest.approx(half["ratio"], rel=1e-10)
     assert row["half_dl_ci_low"] == pytest.approx(half["ci_low"], rel=1e-10)
     assert row["half_dl_ci_high"] == pytest.approx(half["ci_high"], rel=1e-10)
-    assert "Sensitive to the below-detection entries" in finding(row)
+    assert "sensitive to the below-detection entries" in finding(row)
 
 
 def test_equal_limits_and_little_censoring_are_not_censoring_sensitive():

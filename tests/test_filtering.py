@@ -98,7 +98,7 @@ def test_plain_word_is_literal_not_regex(frame: pl.DataFrame) -> None:
         ("ratio>=0.95", ["k0", "k1", "k2"]),
         ("change>=10", ["k0", "k1"]),
         ("change<-10", ["k3"]),
-        ("fold>2", ["k3"]),
+        ("ciwidth>2", ["k3"]),  # the CI's upper/lower ratio
         # n is the smaller group: k1 has 8/30, k4 has 1/20
         ("n>=10", ["k0", "k2", "k3"]),
         ("n<10", ["k1", "k4"]),

@@ -86,7 +86,8 @@ def layout(width: int, natural: dict[str, int], sort_on: str = "") -> tuple[Colu
     name columns grown toward their ``natural`` widths (the longest name, at most
     NAME_LIMIT: names are cut only when the terminal has no room for them), then optional
     columns while they fit."""
-    sizes = {c.title: c.width for c in COLUMNS if c.title in REQUIRED}
+    required = (*REQUIRED, "grouping") if natural.get("grouping") else REQUIRED
+    sizes = {c.title: c.width for c in COLUMNS if c.title in required}
     widths = {c.title: c.width for c in COLUMNS}
     names = ("outcome", "level b ÷ level a")
 
@@ -151,13 +152,16 @@ def _natural_widths(frame: pl.DataFrame) -> dict[str, int]:
     """The cells the longest outcome label and level pair of the frame take."""
     if not frame.height or col.OUTCOME_LABEL not in frame.columns:
         return {}
+    # Comparisons within strata need the grouping·stratum column to be read.
+    several = frame[col.STRATUM].null_count() < frame.height
     widths = frame.select(
         pl.col(col.OUTCOME_LABEL).str.len_chars().max().alias("outcome"),
         (pl.col(col.LEVEL_B).str.len_chars() + pl.col(col.LEVEL_A).str.len_chars() + 3)
         .max()
         .alias("level b ÷ level a"),
     ).row(0, named=True)
-    return {name: int(value or 0) for name, value in widths.items()}
+    named = {name: int(value or 0) for name, value in widths.items()}
+    return named | ({"grouping": 1} if several else {})
 
 
 class ComparisonList(ScrollView, can_focus=True):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -19,7 +20,7 @@ from foldsift.stats.robust import RobustCheck
 from foldsift.stats.sentence import readable_outcome
 
 from .facts import facts_text
-from .histograms import back_to_back
+from .histograms import STYLE_A, STYLE_B, Group, draw_groups
 from .plain import visible
 
 #: Both groups' usable values for a row: (a, b).
@@ -83,8 +84,9 @@ class Facts(VerticalScroll):
 
 
 class Charts(Static):
-    """Both groups' histograms on the raw and the log scale. Drawn once the cursor has
-    rested for ``DELAY`` seconds: moving through the list does not wait for them."""
+    """Both groups' distributions on the log and the raw scale, drawn to the widget's size
+    (``histograms.draw_groups``). Drawn once the cursor has rested for ``DELAY`` seconds:
+    moving through the list does not wait for them."""
 
     DELAY = 0.06
 
@@ -111,28 +113,48 @@ class Charts(Static):
 
     def draw(self) -> None:
         row = self._row
-        if row is None:
+        width, height = self.size
+        if row is None or not (width and height):
             self.update("", layout=False)
             return
-        a, b = self._values_of(row)
-        limits_a, limits_b = self._limits_of(row) if self._limits_of else (np.empty(0), np.empty(0))
-        limits = np.unique(np.concatenate([limits_a, limits_b]))
-        width = max(self.size.width - 1, 30)
-        height = max(self.size.height // 2, 7)
-        # Names from the data, with control characters as symbols: the chart's text is read
-        # back with Text.from_ansi, which would obey escape sequences in a name.
-        legend = visible(
-            f"{readable_outcome(row['outcome'])}: ▲ b {row['level_b']} · ▼ a {row['level_a']}"
-        )
-        raw = back_to_back(
-            a, b, log_scale=False, width=width, height=height, title=legend, limits=limits
-        )
-        marks = "lines: GM, + median" + (", grey: detection limits" if limits.size else "")
-        log_title = f"log scale (ticks in raw units) · {marks}"
-        log = back_to_back(
-            a, b, log_scale=True, width=width, height=height, title=log_title, limits=limits
-        )
-        self.update(Text.assemble(raw, "\n", log), layout=False)
+        values_a, values_b = self._values_of(row)
+        limits_a, limits_b = self._limits_of(row) if self._limits_of else (np.empty(0),) * 2
+        a = _group(row, "a", values_a, limits_a)
+        b = _group(row, "b", values_b, limits_b)
+        drawing = draw_groups(a, b, width=width, height=height, title=_chart_title(row))
+        self.update(drawing.text, layout=False)
+
+
+def _group(row: ReviewedRow, which: str, values: np.ndarray, limits: np.ndarray) -> Group:
+    """Group ``which`` ("a" or "b") of the row, to draw. Its marks sit at the figures the
+    facts give (a censored group's fitted geometric mean and Kaplan-Meier median); a figure
+    the row lacks is not marked."""
+    if which == "a":
+        level, gm, median, style = row["level_a"], row["gm_a"], row["median_a"], STYLE_A
+    else:
+        level, gm, median, style = row["level_b"], row["gm_b"], row["median_b"], STYLE_B
+    return Group(
+        f"{which} {visible(level)}",
+        values,
+        style,
+        limits,
+        gm=math.nan if gm is None else float(gm),
+        median=math.nan if median is None else float(median),
+    )
+
+
+def _chart_title(row: ReviewedRow) -> Text:
+    """The outcome (and stratum) and both groups in their colours (names from the data made
+    visible)."""
+    within = f" within {row['within']} {row['stratum']}" if row["within"] else ""
+    return Text.assemble(
+        visible(readable_outcome(row["outcome"]) + within),
+        ": ",
+        (f"b {visible(row['level_b'])}", STYLE_B),
+        " ÷ ",
+        (f"a {visible(row['level_a'])}", STYLE_A),
+        no_wrap=True,
+    )
 
 
 class Detail(Horizontal):

@@ -17,6 +17,7 @@ from foldsift.stats.columns import ReviewedRow
 from foldsift.stats.diagnostics import explain
 from foldsift.stats.formatting import (
     MISSING,
+    any_fold,
     count_text,
     interval_text,
     level_text,
@@ -76,7 +77,8 @@ class _Table:
 
     def line(self, label: str, value: str, remark: str = "") -> None:
         self._label(label)
-        self.text.append(value.ljust(self.value_width), style="bold")
+        # A value as wide as its column keeps one space before the remark.
+        self.text.append(value.ljust(self.value_width - 1) + " ", style="bold")
         self.text.append(remark + "\n")
 
 
@@ -163,7 +165,8 @@ def _estimates(table: _Table, row: ReviewedRow, band: tuple[float, float]) -> No
     level = level_text(row["confidence"])
     test = "Welch" if row["test"] == "welch" else "pooled"
     ci = interval_text(row["ci_low"], row["ci_high"], " to ")
-    table.line("ratio b/a (GM)", ratio_text(row["ratio"]), f"{level} CI {ci}")
+    folded = any_fold(row["ratio"], row["ci_low"], row["ci_high"])
+    table.line("ratio b/a (GM)", ratio_text(row["ratio"], folded), f"{level} CI {ci}")
     table.line("method", str(row["method"]), METHOD_REMARKS[row["method"]])
     if row["half_dl_ratio"] is not None:
         half_ci = interval_text(row["half_dl_ci_low"], row["half_dl_ci_high"], " to ")
