@@ -31,6 +31,12 @@ MEDIAN_GM_Z = 1.96
 #: Median detection limits of two groups further apart than this factor bias a substituted
 #: comparison (our rule; see ``WARNINGS["limits-differ"]``).
 LIMITS_FACTOR = 2.0
+#: Paired comparisons (``paired``): fewer paired units than this share of the units (our
+#: rule); a unit shifting the mean log ratio by more than INFLUENCE_SHIFT SE and an outlier
+#: at Bonferroni p < OUTLIER_ALPHA (see ``paired``).
+FEW_PAIRED_SHARE = 0.5
+INFLUENCE_SHIFT = 1.0
+OUTLIER_ALPHA = 0.01
 
 #: Warning name -> one-line explanation, in the order they are listed.
 WARNINGS: dict[WarningName, str] = {
@@ -86,6 +92,24 @@ WARNINGS: dict[WarningName, str] = {
         f"the groups' detection limits differ by more than {LIMITS_FACTOR:g}x (medians of "
         "their limits), or one group has detected values below half the other's limits: a "
         "substituted comparison would be biased, the censored fit is not"
+    ),
+    "few-paired": (
+        f"fewer than {FEW_PAIRED_SHARE:.0%} of the units are paired (the rest are measured "
+        "at one level only or have a value left out): the pairs may not represent the units"
+    ),
+    "values-combined": (
+        "some paired units had several values at one level: they were combined by their "
+        "geometric mean"
+    ),
+    "pairs-skewed": (
+        f"the within-unit log ratios have |skewness| above {LOG_SKEW:g} "
+        f"(n >= {LOG_SKEW_MIN_N}): the ratio is of geometric means, and a few units may "
+        "drive it"
+    ),
+    "unit-dominates": (
+        f"leaving out one unit (named) moves the mean log ratio by more than "
+        f"{INFLUENCE_SHIFT:g} SE, and that unit is an outlier (studentized residual, "
+        f"Bonferroni p < {OUTLIER_ALPHA:g})"
     ),
 }
 

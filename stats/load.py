@@ -185,6 +185,9 @@ class Table:
     notes: tuple[str, ...] = ()
     units: dict[str, str] = field(default_factory=dict)
     units_apart: tuple[str, ...] = ()
+    #: Design columns carried as text beside the groupings (the unit of ``--pair-by``, the
+    #: period and sequence of a crossover); never compared themselves.
+    design: tuple[str, ...] = ()
 
     @property
     def name(self) -> str:
@@ -241,7 +244,7 @@ def _is_text(dtype: pl.DataType) -> bool:
 #: qualifier) carry a kind column for the per-group counts.
 PLAIN_KINDS = [NUMBER, MISSING]
 
-_ARTICLE = {"grouping": "a", "outcome": "an"}
+_ARTICLE = {"grouping": "a", "outcome": "an", "design column": "a"}
 _ID_NAME = re.compile(r"(^|[_ .-])(id|no|num|number|index|idx|sample|row)$", re.IGNORECASE)
 #: Names of columns that number the units measured (subjects, patients, animals): whole
 #: numbers repeated on several rows there identify, they neither measure nor group.
@@ -623,6 +626,7 @@ def load_table(
     outcomes: Sequence[str] | None = None,
     reading: ReadOptions | None = None,
     long: LongOptions | None = None,
+    design: Sequence[str] = (),
 ) -> Table:
     """Load a file (or an in-memory raw frame) and resolve column roles.
 
@@ -632,6 +636,8 @@ def load_table(
     Named ``groupings``/``outcomes`` override the guesses; a named column that does not
     exist, or that holds lists or structures, raises :class:`InputError`. ``reading`` sets
     the encoding and the decimal mark where the file cannot be trusted to show them.
+    ``design`` columns (a unit, period or sequence) are kept as text and are neither
+    groupings nor outcomes.
     """
     reading = reading or ReadOptions()
     named_groups = tuple(groupings or ())
@@ -650,13 +656,23 @@ def load_table(
         decimal=reading.decimal,
         comma_hint=source.separator == ";",
     )
+    _check_named(raw, label, "design column", design)
     chosen_groups, chosen_outcomes = _choose_roles(raw, named_groups, named_outcomes, parsed)
+    chosen_groups = [name for name in chosen_groups if name not in design]
+    chosen_outcomes = [name for name in chosen_outcomes if name not in design]
     _check_roles(chosen_groups, chosen_outcomes, label)
     readings = {name: parsed[name].reading for name in chosen_outcomes if name in parsed}
     _check_readings(readings, label)
     names = DerivedNames.beside(raw.columns)
     typed = _typed(raw, chosen_groups, chosen_outcomes, names, parsed)
     _check_values(typed, chosen_groups, chosen_outcomes, label)
+    if design:
+        typed = typed.hstack(
+            raw.select(
+                pl.when(~missing_of(text_of(name))).then(text_of(name)).alias(name)
+                for name in design
+            )
+        )
     no_level = {g: typed[g].null_count() for g in chosen_groups if typed[g].null_count()}
     return Table(
         frame=typed,
@@ -672,6 +688,7 @@ def load_table(
         + tuple(_looks_long(chosen_groups) if widened is None else ()),
         units=_units(chosen_outcomes, readings, widened),
         units_apart=_long_units_apart(widened),
+        design=tuple(design),
     )
 
 

@@ -68,7 +68,14 @@ import polars as pl
 from scipy import stats as sps
 
 from . import equivalence
-from .diagnostics import LOG_SKEW, LOG_SKEW_MIN_N
+from .diagnostics import (
+    FEW_PAIRED_SHARE,
+    INFLUENCE_SHIFT,
+    LOG_SKEW,
+    LOG_SKEW_MIN_N,
+    OUTLIER_ALPHA,
+    WARNINGS,
+)
 from .entries import MISSING
 from .errors import InputError
 from .load import DerivedNames
@@ -83,46 +90,26 @@ Array = npt.NDArray[np.float64]
 PairedDuplicates = Literal["mean-log", "refuse"]
 PAIRED_DUPLICATE_POLICIES: tuple[PairedDuplicates, ...] = get_args(PairedDuplicates)
 
-#: Fewer paired units than this share of a comparison's units (our rule).
-FEW_PAIRED_SHARE = 0.5
-#: |skewness of d| above this with at least ``PAIR_SKEW_MIN_N`` pairs: the project's
-#: ``log-skew`` rule of thumb, applied to the within-unit log ratios (common practice).
+#: The thresholds of the pairing checks live with the other warnings' rules
+#: (``diagnostics``): fewer paired units than FEW_PAIRED_SHARE (our rule); |skewness of d|
+#: above the ``log-skew`` rule of thumb with enough pairs (common practice); a unit dominates
+#: when leaving it out moves the mean log ratio by more than INFLUENCE_SHIFT standard errors
+#: (the SE computed without it) and it is an outlier: its externally studentized residual,
+#: Bonferroni-adjusted over the n pairs, has p below OUTLIER_ALPHA (the usual outlier test,
+#: e.g. Kutner, Nachtsheim & Neter, Applied Linear Regression Models, sec. 10.2; common
+#: practice). Our rule; in simulations of normal log ratios (20,000 per n) it fired in at
+#: most 1.1% of samples for n 3..200, and it caught one unit shifted by 6 SD in 54–88% of
+#: samples of 8–20 pairs.
 PAIR_SKEW = LOG_SKEW
 PAIR_SKEW_MIN_N = LOG_SKEW_MIN_N
-#: A unit dominates when leaving it out moves the mean log ratio by more than this many
-#: standard errors (the SE computed without it) ...
-INFLUENCE_SHIFT = 1.0
-#: ... and it is an outlier: its externally studentized residual, Bonferroni-adjusted over
-#: the n pairs, has p below this (the usual outlier test, e.g. Kutner, Nachtsheim & Neter,
-#: Applied Linear Regression Models, sec. 10.2; common practice). Our rule; in simulations of
-#: normal log ratios (20,000 per n) it fired in at most 1.1% of samples for n 3..200, and it
-#: caught one unit shifted by 6 SD in 54–88% of samples of 8–20 pairs.
-OUTLIER_ALPHA = 0.01
 #: The influence check needs an SE without the unit: at least this many pairs.
 INFLUENCE_MIN_N = 3
 
-#: The named warnings of paired comparisons (to join ``vocabulary.WarningName``).
+#: The named warnings of paired comparisons (also in ``vocabulary.WarningName``).
 PairedWarningName = Literal["few-paired", "values-combined", "pairs-skewed", "unit-dominates"]
 PAIRED_WARNING_NAMES: tuple[PairedWarningName, ...] = get_args(PairedWarningName)
 PAIRED_WARNINGS: dict[PairedWarningName, str] = {
-    "few-paired": (
-        f"fewer than {FEW_PAIRED_SHARE:.0%} of the units are paired (the rest are measured "
-        "at one level only or have a value left out): the pairs may not represent the units"
-    ),
-    "values-combined": (
-        "some paired units had several values at one level: they were combined by their "
-        "geometric mean"
-    ),
-    "pairs-skewed": (
-        f"the within-unit log ratios have |skewness| above {PAIR_SKEW:g} "
-        f"(n >= {PAIR_SKEW_MIN_N}): the ratio is of geometric means, and a few units may "
-        "drive it"
-    ),
-    "unit-dominates": (
-        f"leaving out one unit (named) moves the mean log ratio by more than "
-        f"{INFLUENCE_SHIFT:g} SE, and that unit is an outlier (studentized residual, "
-        f"Bonferroni p < {OUTLIER_ALPHA:g})"
-    ),
+    name: WARNINGS[name] for name in PAIRED_WARNING_NAMES
 }
 
 _SET = ["grouping", "within", "stratum"]

@@ -28,6 +28,11 @@ Method = Literal[
     "nondetects left out",
     "DL/2 substituted",
     "DL/sqrt2 substituted",
+    "paired t on logs",
+    "paired t, nondetects left out",
+    "paired t, DL/2 substituted",
+    "paired t, DL/sqrt2 substituted",
+    "2x2 crossover",
 ]
 #: A reviewer's decision on a finding (no decision is ``None``, never an empty string).
 Decision = Literal["keep", "doubt", "drop"]
@@ -50,6 +55,10 @@ WarningName = Literal[
     "not-fitted",
     "censoring-sensitive",
     "limits-differ",
+    "few-paired",
+    "values-combined",
+    "pairs-skewed",
+    "unit-dominates",
 ]
 
 PAIRS: tuple[Pairs, ...] = get_args(Pairs)

@@ -3,9 +3,13 @@
 Builds a synthetic table (15 levels -> 105 pairs, times 96 outcomes = 10,080 comparisons),
 opens the app headless through Textual's Pilot, and times cursor moves, page moves,
 re-sorts, filter changes and a flag, each measured from the key press until the app has
-processed it and repainted (``pilot.pause()``). Prints median and worst times.
+processed it and repainted (``pilot.pause()``). Then the same list shows 10,000 and 50,000
+rows (the scan's rows, repeated under new keys) for the overviews: switching to them, moving
+in them, and their own work per repaint (a new frame, a step, grouping; the map's binning and
+its nearest-point move). Prints median and worst times.
 
     python tests/bench_list.py [--outcomes 96] [--levels 15] [--repeats 30]
+        [--overview-rows 10000,50000] [--size 120x36]
 """
 
 from __future__ import annotations
@@ -20,6 +24,7 @@ from pathlib import Path
 import numpy as np
 import polars as pl
 from textual.geometry import Region
+from textual.pilot import Pilot
 from textual.widgets import Input
 
 from foldsift.tui.app import FoldsiftApp
@@ -27,6 +32,9 @@ from foldsift.tui.screens.review import ReviewScreen
 from foldsift.tui.session import SessionOptions
 from foldsift.tui.widgets.comparison_list import ComparisonList
 from foldsift.tui.widgets.detail import Charts, Facts
+from foldsift.tui.widgets.overview import EvidenceMap, IntervalView
+
+Timings = dict[str, list[float]]
 
 
 def synthetic_csv(folder: Path, outcomes: int, levels: int, per_level: int = 12) -> Path:
@@ -40,11 +48,72 @@ def synthetic_csv(folder: Path, outcomes: int, levels: int, per_level: int = 12)
     return path
 
 
-async def measure(path: Path, repeats: int) -> dict[str, list[float]]:
+def rows_of(frame: pl.DataFrame, rows: int) -> pl.DataFrame:
+    """``rows`` rows: the frame's, repeated under new keys as often as needed."""
+    copies = -(-rows // frame.height)
+    repeated = [frame.with_columns(pl.col("key") + f"#{copy}") for copy in range(copies)]
+    return pl.concat(repeated).head(rows).rechunk()  # as a sorted view is
+
+
+def paint_all(widget: IntervalView | EvidenceMap) -> None:
+    """Every line of the widget, as a repaint asks for them."""
+    for y in range(widget.size.height):
+        widget.render_line(y)
+
+
+async def measure_overviews(
+    pilot: Pilot, screen: ReviewScreen, rows: int, repeats: int, timings: Timings
+) -> None:
+    """The overviews with ``rows`` rows in the list: key round trips, then their own work."""
+    listing = screen.query_one(ComparisonList)
+    frame = rows_of(screen.session.view(), rows)
+    other = frame.reverse()  # the same rows in another order: a new frame to draw
+    listing.show(frame)
+    await pilot.pause()
+
+    async def timed(name: str, key: str) -> None:
+        start = time.perf_counter()
+        await pilot.press(key)
+        await pilot.pause()
+        timings.setdefault(f"{name} @{rows:,}", []).append(time.perf_counter() - start)
+
+    intervals, the_map = screen.query_one(IntervalView), screen.query_one(EvidenceMap)
+    frames = iter([frame, other] * repeats)
+    directions = iter(["right", "left", "up", "down"] * repeats)
+    direct = {
+        "intervals: new frame": lambda: (intervals.follow(next(frames), 0), paint_all(intervals)),
+        "intervals: step": lambda: (intervals.action_step(1), paint_all(intervals)),
+        "intervals: grouping": lambda: (intervals.action_toggle_grouping(), paint_all(intervals)),
+        "map: new frame (bin)": lambda: (the_map.follow(next(frames), 0), paint_all(the_map)),
+        "map: nearest point": lambda: (the_map.action_toward(next(directions)), paint_all(the_map)),
+    }
+    for _ in range(max(repeats // 3, 5)):
+        await timed("key v: to intervals", "v")
+        await timed("key down in intervals", "down")
+        await timed("key v: to map", "v")
+        await timed("key right in map", "right")
+        await timed("key v: to the list", "v")
+    for name, work in direct.items():
+        screen.view = "map" if name.startswith("map") else "intervals"
+        await pilot.pause()
+        frames = iter([frame, other] * repeats)
+        for _ in range(repeats):
+            start = time.perf_counter()
+            work()
+            timings.setdefault(f"direct: {name} + paint @{rows:,}", []).append(
+                time.perf_counter() - start
+            )
+    screen.view = "list"
+    await pilot.pause()
+
+
+async def measure(
+    path: Path, repeats: int, overview_rows: list[int], size: tuple[int, int]
+) -> Timings:
     options = SessionOptions(path, reviews_path=path.with_suffix(".sqlite"))
     app = FoldsiftApp(options, export_dir=path.parent)
-    timings: dict[str, list[float]] = {}
-    async with app.run_test(size=(120, 36)) as pilot:
+    timings: Timings = {}
+    async with app.run_test(size=size) as pilot:
         start = time.perf_counter()
         await app.workers.wait_for_complete()
         while not isinstance(app.screen, ReviewScreen):
@@ -105,6 +174,8 @@ async def measure(path: Path, repeats: int) -> dict[str, list[float]]:
                 start = time.perf_counter()
                 work()
                 timings.setdefault(name, []).append(time.perf_counter() - start)
+        for rows in overview_rows:
+            await measure_overviews(pilot, screen, rows, repeats, timings)
     return timings
 
 
@@ -113,14 +184,19 @@ def main() -> None:
     parser.add_argument("--outcomes", type=int, default=96)
     parser.add_argument("--levels", type=int, default=15)
     parser.add_argument("--repeats", type=int, default=30)
+    parser.add_argument("--overview-rows", default="10000,50000")
+    parser.add_argument("--size", default="120x36", help="terminal columns x lines")
     args = parser.parse_args()
+    overview_rows = [int(rows) for rows in args.overview_rows.split(",") if rows]
+    columns, lines = (int(part) for part in args.size.split("x"))
     with tempfile.TemporaryDirectory() as folder:
         path = synthetic_csv(Path(folder), args.outcomes, args.levels)
-        timings = asyncio.run(measure(path, args.repeats))
-    print(f"{'action':28s} {'n':>4s} {'median ms':>10s} {'worst ms':>9s}")
+        timings = asyncio.run(measure(path, args.repeats, overview_rows, (columns, lines)))
+    width = max(28, *(len(name) for name in timings))
+    print(f"{'action':{width}s} {'n':>4s} {'median ms':>10s} {'worst ms':>9s}")
     for name, values in timings.items():
         print(
-            f"{name:28s} {len(values):4d} {1000 * statistics.median(values):10.1f} "
+            f"{name:{width}s} {len(values):4d} {1000 * statistics.median(values):10.1f} "
             f"{1000 * max(values):9.1f}"
         )
     print("target: each repaint after a move or re-sort well under 100 ms")

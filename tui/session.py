@@ -40,8 +40,8 @@ from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
 from foldsift.stats.sentence import readable_outcome, sentence_column
 from foldsift.stats.vocabulary import Decision
 
-from .export import join_reviews, write_export
-from .filtering import FilterError, parse_filter
+from .export import DEFAULT_FORM, ExportForm, join_reviews, short_export, write_export
+from .filtering import FilterError, parse_filter, searchable_names
 from .store import (
     STAMP_PREFIX,
     Review,
@@ -243,6 +243,8 @@ class ReviewSession:
         self.unmatched_reviews: list[str] = [k for k in reviews[col.KEY] if k not in known]
         joined = join_reviews(result.comparisons, reviews)
         self._rows = _list_columns(joined, result.source.outcomes)
+        #: The names a plain filter word searches (a word none contains is an error).
+        self._names = searchable_names(self._rows)
         self._cleanup: Callable[[], None] | None = None
 
     @classmethod
@@ -299,7 +301,7 @@ class ReviewSession:
         rows are then shown unfiltered)."""
         self.filter_text = text
         try:
-            self._filter = parse_filter(text, self._rows.columns)
+            self._filter = parse_filter(text, self._rows.columns, self._names)
         except FilterError as error:
             self._filter = None
             self.filter_error = str(error)
@@ -488,8 +490,14 @@ class ReviewSession:
         frame = frame.select(list(EXPORT_SCHEMA))
         return frame.with_columns(sentence_column(frame))
 
-    def export_settings(self, which: Selection) -> dict[str, Any]:
+    @property
+    def stratified(self) -> bool:
+        """The comparisons were made inside strata (``within`` and ``stratum`` are used)."""
+        return bool(self._rows[col.WITHIN].is_not_null().any())
+
+    def export_settings(self, which: Selection, form: ExportForm = DEFAULT_FORM) -> dict[str, Any]:
         return self.result.metadata() | {
+            "export": form.describe(),
             "rows_chosen": which,
             "filter": self.filter_text if which == "shown" else "",
             "sort": {"column": self.sort_on, "descending": self.descending},
@@ -498,15 +506,26 @@ class ReviewSession:
             "cross_check_seed": self.options.seed,
         }
 
-    def export(self, path: Path, which: Selection, *, overwrite: bool = False) -> ExportReport:
-        """Write the selection to CSV with its settings sidecar, atomically."""
+    def export(
+        self,
+        path: Path,
+        which: Selection,
+        *,
+        overwrite: bool = False,
+        form: ExportForm = DEFAULT_FORM,
+    ) -> ExportReport:
+        """Write the selection to CSV with its settings sidecar, atomically, in the short
+        form (the default) or the full one."""
         frame = self.export_frame(which)
+        if form.columns == "short":
+            frame = short_export(frame, form.digits, stratified=self.stratified)
         written = write_export(
             frame,
             path,
-            self.export_settings(which),
+            self.export_settings(which, form),
             overwrite=overwrite,
             protect=[self.options.data_path],
             allow_formulas=self.options.allow_formulas,
+            bom=form.bom,
         )
         return ExportReport(written, frame.height)

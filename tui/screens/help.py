@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from foldsift.stats.diagnostics import WARNINGS
 from foldsift.stats.equivalence import BAND_CLASSES, DEFAULT_BAND
-from foldsift.stats.formatting import interval_text
+from foldsift.stats.formatting import RATIO_RULE, interval_text
 
 from .. import filtering
 from .dialogs import CAUTIONS
@@ -17,11 +17,22 @@ KEYS: tuple[tuple[str, str], ...] = (
     ("/", "type in the filter line (enter returns to the list)"),
     ("space", "flag or unflag the highlighted comparison"),
     ("1 / 2 / 3 / 0", "decision: keep / doubt / drop / none"),
-    ("n", "write a note (ctrl+s saves, escape cancels; a draft is kept as you type)"),
+    (
+        "n",
+        "write a note (ctrl+s saves; escape closes, asking first if it changed; a draft is"
+        " kept as you type)",
+    ),
     ("b", "cross-checks: bootstrap CI of the median ratio, Hodges-Lehmann, Peto-Prentice"),
     ("B / escape", "cross-check every shown comparison (progress in the status) / stop"),
-    ("x", "export flagged, decided, filtered or all rows to CSV"),
+    ("x", "export flagged, decided, filtered or all rows to CSV, short or full"),
     ("z", "pane sizes: balanced, large detail, large list"),
+    (
+        "v",
+        "view: the list; every shown row's interval on one ratio axis (● q < 0.05, ○ not;"
+        " ◀ ▶ a bound past the edge); the evidence map (ratio against −log10 q)",
+    ),
+    ("g  (intervals)", "rows in the list's order, or grouped by outcome"),
+    ("← → ↑ ↓  (map)", "to the nearest point that way; j k step in list order"),
     ("tab", "move between the list, the filter and the detail"),
     ("?  /  i", "this help / about, cautions and what the review file holds"),
     ("ctrl+q", "quit (every change is already saved; an open note is saved too)"),
@@ -43,7 +54,11 @@ LIST_COLUMNS: tuple[tuple[str, str], ...] = (
     ("n b/a", "usable values in b and in a"),
     ("p", "the t-test's p before adjustment"),
     ("grouping", "the grouping column (·stratum when compared within strata)"),
-    ("change", "percent change of b over a; sorts on the size of the change either way"),
+    (
+        "change",
+        "percent change of b over a (a fold beyond -90% / +900%); sorts on the size of the "
+        "change either way",
+    ),
     ("class", "where the 90% CI falls against the band of no practical difference"),
     ("method", "t-test on logs, censored ML, or a substitution for below-detection values"),
 )
@@ -62,6 +77,7 @@ def help_text(band: tuple[float, float] = DEFAULT_BAND) -> str:
         "",
     ]
     lines += [f"- **{name}** — {what}" for name, what in LIST_COLUMNS]
+    lines += ["", "# How ratios read", "", RATIO_RULE]
     lines += ["", "# Filter line", "", filtering.FILTER_WORDS]
     lines += ["", "# Equivalence classes", ""]
     lines += [f"The band of this scan: {interval_text(*band)} (set it with --band).", ""]

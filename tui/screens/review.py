@@ -35,13 +35,15 @@ from foldsift.stats.robust import CheckJob
 from foldsift.stats.sentence import readable_outcome, stratum_phrase
 from foldsift.stats.vocabulary import DECISIONS, choose
 
+from ..export import ExportForm, csv_rows
 from ..messages import CrossCheckDone, CrossCheckProgress
 from ..session import DEFAULT_SORT, ReviewSession, Selection
 from ..store import Review, ReviewConflict, ReviewStoreBusy, ReviewStoreError
 from ..widgets.comparison_list import SORT_NAMES, SORTABLE, ComparisonList
 from ..widgets.detail import Detail, Subject
+from ..widgets.overview import VIEW_NAMES, EvidenceMap, IntervalView, ViewName
 from ..widgets.status_line import Notice, StatusLine, ViewSummary
-from .dialogs import ConfirmScreen, ExportChoice, ExportScreen, NoteScreen
+from .dialogs import ExportChoice, ExportScreen, NoteScreen, replace_question
 
 #: The pane sizes ``z`` steps through; the screen carries the class of any but the first.
 PaneLayout = Literal["balanced", "detail-large", "list-large"]
@@ -60,6 +62,7 @@ LIST_ACTIONS = frozenset(
         "export",
         "next_sort",
         "reverse_sort",
+        "next_view",
     }
 )
 CROSS_CHECK_ACTIONS = frozenset({"robust", "robust_shown"})
@@ -68,7 +71,7 @@ FILTER_HINT = (
     "  (/ to type, ? for all)"
 )
 BUSY = "review file busy — not saved, try again"
-DRAFT_RESTORED = "unsaved draft restored: ctrl+s saves it, escape keeps the saved note"
+DRAFT_RESTORED = "unsaved draft restored: ctrl+s saves it, escape asks whether to keep it"
 CHANGED_ELSEWHERE = (
     "this review was changed in another session since it was shown: the note is shown as it is now"
 )
@@ -135,17 +138,19 @@ class ReviewScreen(Screen[None]):
         Binding("2", "decide('doubt')", "Doubt", show=False, id="app.doubt"),
         Binding("3", "decide('drop')", "Drop", show=False, id="app.drop"),
         Binding("0", "clear_decision", "Undecide", show=False, id="app.undecide"),
-        Binding("b", "robust", "Check", id="app.robust"),
+        Binding("b", "robust", "Check", show=False, id="app.robust"),
         Binding("B", "robust_shown", "Cross-check shown", show=False, id="app.robust_shown"),
         Binding("escape", "stop_checks", "Stop checks", show=False, id="app.stop_checks"),
         Binding("x", "export", "Export", id="app.export"),
         Binding("z", "cycle_panes", "Panes", show=False, id="app.panes"),
+        Binding("v", "next_view", "View", id="app.view"),
     ]
 
     sort_on: reactive[str] = reactive(DEFAULT_SORT, init=False)
     descending: reactive[bool] = reactive(False, init=False)
     filter_text: reactive[str] = reactive("", init=False)
     panes: reactive[PaneLayout] = reactive("balanced", init=False)
+    view: reactive[ViewName] = reactive("list", init=False)
     notice: reactive[Notice | None] = reactive(None, init=False)
 
     def __init__(
@@ -156,12 +161,18 @@ class ReviewScreen(Screen[None]):
         self.export_dir = export_dir
         self._check_all_on_open = check_all_on_open
         self._note: OpenNote | None = None
+        self._last_export: ExportChoice | None = None  # the dialog opens on it again
 
     # -- layout and the view ---------------------------------------------------------------
     def compose(self) -> ComposeResult:
         yield StatusLine(id="status")
         yield Input(placeholder=FILTER_HINT, id="filter")
         yield ComparisonList(id="list")
+        settings = self.session.result.settings
+        move = self._move_cursor
+        intervals = IntervalView(settings.band, settings.confidence, move, id="intervals")
+        yield intervals.add_class("-off")
+        yield EvidenceMap(settings.band, move, id="evidence-map").add_class("-off")
         yield Detail(
             self.session.result.settings.band,
             self.session.group_values,
@@ -256,6 +267,7 @@ class ReviewScreen(Screen[None]):
     @on(ComparisonList.Highlighted)
     def _highlighted(self) -> None:
         self._show_detail()
+        self._follow_cursor()
 
     def watch_notice(self, notice: Notice | None) -> None:
         with suppress(NoMatches):  # said while the app ends (keeping a note's draft failed)
@@ -268,6 +280,40 @@ class ReviewScreen(Screen[None]):
     def action_cycle_panes(self) -> None:
         """Balanced, a large detail, or a large list (for small terminals)."""
         self.panes = PANE_LAYOUTS[(PANE_LAYOUTS.index(self.panes) + 1) % len(PANE_LAYOUTS)]
+
+    # -- the overviews: every shown row's interval, the evidence map -------------------------
+    def _view_widget(self) -> ComparisonList | IntervalView | EvidenceMap:
+        """The widget the body shows now (the list, or an overview in its place)."""
+        if self.view == "intervals":
+            return self.query_one(IntervalView)
+        if self.view == "map":
+            return self.query_one(EvidenceMap)
+        return self.query_one(ComparisonList)
+
+    def watch_view(self, new: ViewName) -> None:
+        # A class on the three widgets, not on the screen: restyling the whole screen would
+        # cost more than drawing the view.
+        shown = self._view_widget()
+        for widget in self.query_one(ComparisonList), *self.query("IntervalView, EvidenceMap"):
+            widget.set_class(widget is not shown, "-off")
+        self._follow_cursor()
+        shown.focus()
+
+    def action_next_view(self) -> None:
+        """The list, every shown row's interval, or the evidence map."""
+        self.view = VIEW_NAMES[(VIEW_NAMES.index(self.view) + 1) % len(VIEW_NAMES)]
+
+    def _move_cursor(self, index: int) -> None:
+        """An overview moved: the list's cursor follows at once (the detail by message)."""
+        self.query_one(ComparisonList).cursor_row = index
+
+    def _follow_cursor(self) -> None:
+        """The overview on show draws the list's rows and marks its cursor."""
+        with suppress(NoMatches):  # a late message while the screen closes
+            shown = self._view_widget()
+            if not isinstance(shown, ComparisonList):
+                listing = self.query_one(ComparisonList)
+                shown.follow(listing.frame, listing.cursor_row)
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         if action in CROSS_CHECK_ACTIONS and not self.session.can_cross_check:
@@ -312,7 +358,7 @@ class ReviewScreen(Screen[None]):
 
     @on(Input.Submitted, "#filter")
     def _filter_submitted(self) -> None:
-        self.query_one(ComparisonList).focus()
+        self._view_widget().focus()
 
     def action_focus_filter(self) -> None:
         # Focus at once, not on the next idle (Widget.focus): keys typed right after "/"
@@ -403,7 +449,11 @@ class ReviewScreen(Screen[None]):
         row = self.session.row(key)
         title = f"Note: {comparison_name(row) if row else key}"
         editor = NoteScreen(
-            title, text, lines=lines, keep_draft=lambda typed: self._keep_draft(key, typed)
+            title,
+            text,
+            lines=lines,
+            keep_draft=lambda typed: self._keep_draft(key, typed),
+            saved=before,
         )
         self._note = OpenNote(key, before, editor)
         self.app.push_screen(editor, lambda typed: self._note_closed(key, typed))
@@ -552,11 +602,13 @@ class ReviewScreen(Screen[None]):
             "all": counts["all"],
         }
         default = self.export_dir / f"{self.session.options.data_path.stem}-findings.csv"
-        self.app.push_screen(ExportScreen(default, choices), self._export_chosen)
+        dialog = ExportScreen(default, choices, last=self._last_export)
+        self.app.push_screen(dialog, self._export_chosen)
 
     def _export_chosen(self, choice: ExportChoice | None) -> None:
         if choice is None:
             return
+        self._last_export = choice
         if not choice.path.exists():
             self._export(choice, overwrite=False)
             return
@@ -565,11 +617,13 @@ class ReviewScreen(Screen[None]):
             if replace:
                 self._export(choice, overwrite=True)
 
-        self.app.push_screen(ConfirmScreen(f"{choice.path} exists. Replace it?"), answered)
+        rows = self.session.selection(choice.rows).height
+        self.app.push_screen(replace_question(choice.path, csv_rows(choice.path), rows), answered)
 
     def _export(self, choice: ExportChoice, *, overwrite: bool) -> None:
+        form = ExportForm(columns=choice.columns)
         try:
-            report = self.session.export(choice.path, choice.rows, overwrite=overwrite)
+            report = self.session.export(choice.path, choice.rows, overwrite=overwrite, form=form)
         except (OSError, ValueError) as error:
             self.notice = Notice(f"export failed: {error}", "error")
             return
