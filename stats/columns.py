@@ -94,6 +94,14 @@ class ComparisonRow(TypedDict):
     half_dl_ci_low: float | None
     half_dl_ci_high: float | None
     half_dl_band_class: BandClass | None
+    pair_by: str | None  # the unit column of a paired or crossover comparison (else None)
+    n_pairs: int | None  # units with a usable value at both levels (subjects in a crossover)
+    n_only_a: int | None  # units measured at level a only
+    n_only_b: int | None
+    n_unpaired_left_out: int | None  # units not paired: a value left out by the policy
+    n_combined: int | None  # paired units whose several values were combined (geometric mean)
+    within_cv: float | None  # within-unit (within-subject) CV from the log-scale SD
+    influential_unit: str | None  # the unit behind unit-dominates
     mean_log_difference: float | None
     se_log: float | None
     sd_log_a: float | None

@@ -648,31 +648,16 @@ def load_table(
     source, widened = _widened(source, long or LongOptions(), label, reading)
     named_outcomes = tuple(outcomes or ()) or _long_outcomes(widened)
     raw = source.frame
-    _check_named(raw, label, "grouping", named_groups)
-    _check_named(raw, label, "outcome", named_outcomes)
-    parsed = read_columns(
-        raw,
-        _to_parse(raw, named_groups, named_outcomes),
-        decimal=reading.decimal,
-        comma_hint=source.separator == ";",
+    parsed = _parsed(source, (named_groups, named_outcomes), reading, label)
+    chosen_groups, chosen_outcomes = _roles(
+        raw, (named_groups, named_outcomes), parsed, design, label
     )
-    _check_named(raw, label, "design column", design)
-    chosen_groups, chosen_outcomes = _choose_roles(raw, named_groups, named_outcomes, parsed)
-    chosen_groups = [name for name in chosen_groups if name not in design]
-    chosen_outcomes = [name for name in chosen_outcomes if name not in design]
-    _check_roles(chosen_groups, chosen_outcomes, label)
     readings = {name: parsed[name].reading for name in chosen_outcomes if name in parsed}
     _check_readings(readings, label)
     names = DerivedNames.beside(raw.columns)
     typed = _typed(raw, chosen_groups, chosen_outcomes, names, parsed)
     _check_values(typed, chosen_groups, chosen_outcomes, label)
-    if design:
-        typed = typed.hstack(
-            raw.select(
-                pl.when(~missing_of(text_of(name))).then(text_of(name)).alias(name)
-                for name in design
-            )
-        )
+    typed = _with_design(typed, raw, design)
     no_level = {g: typed[g].null_count() for g in chosen_groups if typed[g].null_count()}
     return Table(
         frame=typed,
@@ -689,6 +674,51 @@ def load_table(
         units=_units(chosen_outcomes, readings, widened),
         units_apart=_long_units_apart(widened),
         design=tuple(design),
+    )
+
+
+def _parsed(
+    source: RawTable,
+    named: tuple[Sequence[str], Sequence[str]],
+    reading: ReadOptions,
+    label: str,
+) -> dict[str, ParsedColumn]:
+    """The named columns checked, then the text columns read as numbers where they can be."""
+    raw = source.frame
+    _check_named(raw, label, "grouping", named[0])
+    _check_named(raw, label, "outcome", named[1])
+    return read_columns(
+        raw,
+        _to_parse(raw, named[0], named[1]),
+        decimal=reading.decimal,
+        comma_hint=source.separator == ";",
+    )
+
+
+def _roles(
+    raw: pl.DataFrame,
+    named: tuple[Sequence[str], Sequence[str]],
+    parsed: dict[str, ParsedColumn],
+    design: Sequence[str],
+    label: str,
+) -> tuple[list[str], list[str]]:
+    """The grouping and outcome columns (``_choose_roles``), design columns taken out."""
+    _check_named(raw, label, "design column", design)
+    groups, outcomes = _choose_roles(raw, named[0], named[1], parsed)
+    groups = [name for name in groups if name not in design]
+    outcomes = [name for name in outcomes if name not in design]
+    _check_roles(groups, outcomes, label)
+    return groups, outcomes
+
+
+def _with_design(typed: pl.DataFrame, raw: pl.DataFrame, design: Sequence[str]) -> pl.DataFrame:
+    """The typed table with the design columns as text (null where there is no value)."""
+    if not design:
+        return typed
+    return typed.hstack(
+        raw.select(
+            pl.when(~missing_of(text_of(name))).then(text_of(name)).alias(name) for name in design
+        )
     )
 
 

@@ -17,13 +17,25 @@ from . import diagnostics, equivalence, precision
 from .censored import CensoredComparison
 from .censored_groups import SUMMARY_EXTRA, GroupEntries, merge_censored
 from .columns import COMPARISON_SCHEMA, key_expression, side
+from .design import DESIGN_SCHEMA, crossover_rows, paired_rows
 from .load import InputError, Table
 from .multiplicity import adjust
 from .policy import ValuePolicy, apply_policy
 from .summaries import group_summaries, level_order
 from .ttest import LogTTest, log_t_test
 from .values import GroupId, GroupSpec, GroupValues, group_specs
-from .vocabulary import FAMILIES, METHODS, PAIRS, TESTS, Family, Method, Pairs, Test, choose
+from .vocabulary import (
+    FAMILIES,
+    METHODS,
+    PAIRS,
+    TESTS,
+    WARNING_NAMES,
+    Family,
+    Method,
+    Pairs,
+    Test,
+    choose,
+)
 
 Array = npt.NDArray[np.float64]
 
@@ -77,6 +89,13 @@ class ScanSettings:
     within: str | None = None
     #: The most comparisons a scan builds; more is refused before any is built.
     max_comparisons: int = DEFAULT_MAX_COMPARISONS
+    #: The unit measured at several levels (``--pair-by``): paired comparisons.
+    pair_by: str | None = None
+    #: Several values of one unit at one level: their geometric mean, or refuse.
+    pair_duplicates: Literal["mean-log", "refuse"] = "mean-log"
+    #: A 2×2 crossover's period and sequence columns (with ``pair_by`` the subject).
+    period: str | None = None
+    sequence: str | None = None
 
     def __post_init__(self) -> None:
         choose(self.pairs, PAIRS, "pairs")
@@ -84,6 +103,10 @@ class ScanSettings:
             raise ValueError(f"max_comparisons must be at least 1, got {self.max_comparisons}")
         choose(self.test, TESTS, "test")
         choose(self.family, FAMILIES, "family")
+        if (self.period is None) != (self.sequence is None):
+            raise ValueError("a 2x2 crossover needs both the period and the sequence column")
+        if self.period is not None and self.pair_by is None:
+            raise ValueError("a 2x2 crossover needs the subject column (--pair-by)")
         if not 0.5 <= self.confidence < 1:
             raise ValueError(f"confidence must be at least 0.5 and below 1, got {self.confidence}")
         equivalence.check_band(*self.band)
@@ -317,13 +340,15 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         nulls_equal=True,
     )
     summaries = merge_censored(summaries, entries.figures(), settings.policy)
+    completed = complete_summaries(summaries)
     comparisons = compare_summaries(
-        complete_summaries(summaries),
+        completed,
         settings,
         table.outcomes,
         table.units,
         table.units_apart,
         entries=entries,
+        design=_design(table, used, specs, completed, settings),
     )
     source = DataSource(
         path=table.path,
@@ -335,6 +360,42 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         notes=table.notes,
     )
     return ScanResult(comparisons, summaries, settings, source, values, entries)
+
+
+def _design(
+    table: Table,
+    used: pl.DataFrame,
+    specs: list[GroupSpec],
+    summaries: pl.DataFrame,
+    settings: ScanSettings,
+) -> pl.DataFrame | None:
+    """The paired or crossover rows that replace independent-groups comparisons (None
+    without ``pair_by``)."""
+    unit = settings.pair_by
+    if unit is None:
+        return None
+    for role, name in (
+        ("unit", unit),
+        ("period", settings.period),
+        ("sequence", settings.sequence),
+    ):
+        if name is not None and name not in table.design:
+            raise InputError(f"{table.name}: the {role} column {name!r} was not read")
+    if settings.period is not None and settings.sequence is not None:
+        return crossover_rows(
+            table, used, unit, settings.period, settings.sequence, confidence=settings.confidence
+        )
+    return paired_rows(
+        table,
+        used,
+        specs,
+        build_pairs(summaries, settings),
+        unit,
+        policy=settings.policy,
+        confidence=settings.confidence,
+        target_ratio=settings.target_ratio,
+        duplicates=settings.pair_duplicates,
+    )
 
 
 def complete_summaries(summaries: pl.DataFrame) -> pl.DataFrame:
@@ -390,6 +451,14 @@ def _join_sides(
     )
 
 
+def _design_or(frame: pl.DataFrame, name: str, values: Array) -> Array:
+    """The design's figure where a row has a design (paired or crossover), else ``values``."""
+    designed = frame["design_method"].is_not_null().to_numpy()
+    given = frame[name].cast(pl.Float64).fill_null(np.nan).to_numpy()
+    chosen: Array = np.where(designed, given, values)
+    return chosen
+
+
 def _figures(frame: pl.DataFrame, test: LogTTest, settings: ScanSettings) -> dict[str, Array]:
     """Every numeric column computed from the t-test and both groups' figures."""
 
@@ -421,7 +490,7 @@ def _figures(frame: pl.DataFrame, test: LogTTest, settings: ScanSettings) -> dic
         "p_value": test.p_value,
         "p_holm": holm,
         "q_bh": bh,
-        "median_ratio": median_ratio,
+        "median_ratio": _design_or(frame, "design_median_ratio", median_ratio),
         "percent_change": 100 * (test.ratio - 1),
         "log2_ratio": test.difference / math.log(2),
         "mean_log_difference": test.difference,
@@ -437,8 +506,12 @@ def _figures(frame: pl.DataFrame, test: LogTTest, settings: ScanSettings) -> dic
         "tost_ci_low": tost_low,
         "tost_ci_high": tost_high,
         "ci_fold": ratio_high / ratio_low,
-        "detectable_ratio": precision.detectable_ratio(n_a, n_b, pooled_sd, alpha=alpha),
-        "n_needed": n_needed,
+        "detectable_ratio": _design_or(
+            frame,
+            "design_detectable_ratio",
+            precision.detectable_ratio(n_a, n_b, pooled_sd, alpha=alpha),
+        ),
+        "n_needed": _design_or(frame, "design_n_needed", n_needed),
     }
 
 
@@ -531,6 +604,37 @@ def _with_rows(
     return LogTTest(t=t, t_critical=t_critical, **replaced)
 
 
+_IDENTITY = [*_SET, "outcome", "level_a", "level_b"]
+
+
+def _with_design(frame: pl.DataFrame, design: pl.DataFrame | None) -> pl.DataFrame:
+    """The comparisons with the design rows joined (null columns without a design)."""
+    rows = design if design is not None else pl.DataFrame(schema=DESIGN_SCHEMA)
+    joined = frame.join(rows, on=_IDENTITY, how="left", nulls_equal=True)
+    return joined.with_columns(
+        pl.col("design_warnings").fill_null(pl.lit([], pl.List(pl.Enum(list(WARNING_NAMES))))),
+        pl.coalesce("design_gm_a", "gm_a").alias("gm_a"),
+        pl.coalesce("design_gm_b", "gm_b").alias("gm_b"),
+    )
+
+
+def _design_test(test: LogTTest, frame: pl.DataFrame, confidence: float) -> LogTTest:
+    """``test`` with the rows of a paired or crossover design replaced by the design's
+    difference, SE and df (then its own CI and p)."""
+    difference = frame["design_difference"].cast(pl.Float64).fill_null(np.nan).to_numpy()
+    rows = np.flatnonzero(frame["design_method"].is_not_null().to_numpy())
+    if rows.size == 0:
+        return test
+    se = frame["design_se"].cast(pl.Float64).fill_null(np.nan).to_numpy()[rows]
+    df = frame["design_df"].cast(pl.Float64).fill_null(np.nan).to_numpy()[rows]
+    d = difference[rows]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p = 2 * sps.t.sf(np.abs(d / se), df)
+        critical = sps.t.ppf(0.5 + confidence / 2, df)
+    joint = CensoredComparison(d, se, df, d - critical * se, d + critical * se, p)
+    return _with_rows(test, rows, joint, confidence)
+
+
 def _method_expression(policy: ValuePolicy) -> pl.Expr:
     """What each comparison's numbers rest on (``vocabulary.METHODS``)."""
     fitted = (
@@ -587,13 +691,14 @@ def compare_summaries(
     units_apart: Sequence[str] = (),
     *,
     entries: GroupEntries | None = None,
+    design: pl.DataFrame | None = None,
 ) -> pl.DataFrame:
     """Every comparison from per-group summaries (one row per grouping × stratum × level ×
     outcome): the part of the scan that needs no raw values, except the common-SD fits of
     censored comparisons under ``--test pooled`` (from ``entries``). Returns a frame with
     exactly ``columns.COMPARISON_SCHEMA``."""
-    frame = _join_sides(summaries, settings, outcomes)
-    test = _log_test(frame, settings, entries)
+    frame = _with_design(_join_sides(summaries, settings, outcomes), design)
+    test = _design_test(_log_test(frame, settings, entries), frame, settings.confidence)
     figures = _figures(frame, test, settings)
     classes = equivalence.band_class(
         figures["ci_low"],
@@ -616,7 +721,10 @@ def compare_summaries(
         pl.Series("censoring_sensitive", sensitive, dtype=pl.Boolean),
         pl.Series("half_dl_band_class", half_class, dtype=pl.String).replace("", None),
         pl.lit(settings.test).alias("test"),
-        _method_expression(settings.policy).alias("method"),
+        pl.coalesce(
+            pl.col("design_method").cast(pl.Enum(list(METHODS))),
+            _method_expression(settings.policy),
+        ).alias("method"),
         pl.col("outcome")
         .replace_strict(dict(units or {}), default=None, return_dtype=pl.String)
         .alias("unit"),
@@ -624,6 +732,9 @@ def compare_summaries(
         pl.lit(settings.confidence, pl.Float64).alias("confidence"),
     )
     frame = frame.with_columns(
-        diagnostics.warning_expression().alias("warnings"), key_expression().alias("key")
+        pl.concat_list(diagnostics.warning_expression(), pl.col("design_warnings"))
+        .list.unique(maintain_order=True)
+        .alias("warnings"),
+        key_expression().alias("key"),
     )
     return frame.select(list(COMPARISON_SCHEMA)).cast(COMPARISON_SCHEMA)

@@ -292,6 +292,31 @@ def caveat(row: ComparisonRow) -> str:
     return text
 
 
+def paired_phrase(row: ComparisonRow) -> str:
+    """ ", within the same wells" for a paired or crossover comparison (the unit column's
+    name), else ""."""
+    unit = row["pair_by"]
+    if unit is None:
+        return ""
+    plural = unit if unit.endswith("s") else f"{unit}s"
+    return f", within the same {plural}"
+
+
+def _basis(row: ComparisonRow) -> str:
+    """The test the numbers rest on, with the below-detection share and its treatment."""
+    test = "Welch" if row["test"] == "welch" else "pooled"
+    censored = censored_phrase(row)
+    method = row["method"]
+    if method == "censored ML":
+        return f"{censored}; {test} t on the fitted log means"
+    if method == "2x2 crossover":
+        return f"2x2 crossover, {row['n_pairs']} subjects; analysis of variance on the logs"
+    if str(method).startswith("paired t"):
+        pairs = f"paired t on the logs of {row['n_pairs']} pairs"
+        return f"{censored}; {pairs}" if censored else pairs
+    return f"{censored}; {test} t-test on logs" if censored else f"{test} t-test on logs"
+
+
 def finding(row: ComparisonRow) -> str:
     """The sentence for one row of the comparisons frame: the ratio of geometric means as a
     multiplier (called a ratio of medians only when ``says_median``), its CI, test, p and
@@ -302,12 +327,7 @@ def finding(row: ComparisonRow) -> str:
     ratio = row["ratio"]
     if ratio is None:
         return _not_comparable(row, outcome, group_a, group_b)
-    test = "Welch" if row["test"] == "welch" else "pooled"
-    censored = censored_phrase(row)
-    if row["method"] == "censored ML":
-        basis = f"{censored}; {test} t on the fitted log means"
-    else:
-        basis = f"{censored}; {test} t-test on logs" if censored else f"{test} t-test on logs"
+    basis = _basis(row)
     median = says_median(row)
     what = "ratio of geometric means, logs symmetric; " if median else ""
     detail = (
@@ -318,7 +338,7 @@ def finding(row: ComparisonRow) -> str:
     text = (
         f"The {'median' if median else 'geometric mean'} {outcome} in {group_b} is "
         f"{times_words(ratio, folded)} {'than in' if folded else 'that in'} {group_a}"
-        f"{stratum_phrase(row)} ({detail})."
+        f"{stratum_phrase(row)}{paired_phrase(row)} ({detail})."
     )
     low, high = row["ci_low"], row["ci_high"]
     if low is not None and high is not None and low <= 1 <= high:

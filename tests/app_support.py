@@ -119,14 +119,20 @@ def sentence(app: FoldsiftApp) -> str:
 
 
 async def export_via_dialog(
-    app: FoldsiftApp, pilot: Pilot, rows: str | None = None, name: str | None = None
+    app: FoldsiftApp,
+    pilot: Pilot,
+    rows: str | None = None,
+    name: str | None = None,
+    columns: str | None = None,
 ) -> None:
-    """Open the export dialog, pick rows and (typed) file name, press enter."""
+    """Open the export dialog, pick rows, columns (short or full) and (typed) file name,
+    press enter."""
     await pilot.press("x")
     await until(pilot, lambda: isinstance(app.screen, ExportScreen), "export dialog")
-    if rows is not None:
-        await pilot.click(f"#rows-{rows}")
-        await pilot.pause()
+    for choice in (f"rows-{rows}" if rows else None, f"columns-{columns}" if columns else None):
+        if choice is not None:
+            await pilot.click(f"#{choice}")
+            await pilot.pause()
     path_input = app.screen.query_one("#export-path", Input)
     if name is not None:
         path_input.value = ""

@@ -316,7 +316,7 @@ async def test_cross_checks_of_the_app_equal_those_of_the_command_line(
         await until(pilot, lambda: "press b" not in sentence(app), "detail shows the check")
         detail = sentence(app)
         await pilot.press("space")
-        await export_via_dialog(app, pilot, rows="flagged", name="checked")
+        await export_via_dialog(app, pilot, rows="flagged", name="checked", columns="full")
         target = tmp_path / "checked.csv"
         await until(pilot, lambda: target.exists(), "export of the flagged row")
     exported = pl.read_csv(target).row(0, named=True)

@@ -30,7 +30,13 @@ from textual.widgets import Input, TextArea
 from foldsift.stats.load import file_fingerprint
 from foldsift.stats.sentence import finding, readable_outcome
 from foldsift.tui.app import FoldsiftApp
-from foldsift.tui.screens.dialogs import ConfirmScreen, ExportScreen, NoteScreen, TextScreen
+from foldsift.tui.screens.dialogs import (
+    ConfirmScreen,
+    ExportScreen,
+    NoteScreen,
+    TextScreen,
+    UnsavedNoteScreen,
+)
 from foldsift.tui.store import ReviewStore
 
 from app_support import current, listing, review, running, sentence, session, status, until
@@ -227,8 +233,11 @@ async def test_a_draft_is_kept_while_typing_and_restored_on_reopening(tmp_path: 
         await open_editor(app, pilot)
         assert editor_text(app) == "half a thought"
         assert "unsaved draft restored" in editor_lines(app)
-        await pilot.press("escape")  # keeps the saved note (none) and forgets the draft
-        await until(pilot, lambda: not isinstance(app.screen, NoteScreen), "editor closed")
+        await pilot.press("escape")  # asks: the draft is not the saved note
+        await until(pilot, lambda: isinstance(app.screen, UnsavedNoteScreen), "asked")
+        await pilot.press("d")  # keeps the saved note (none) and forgets the draft
+        closed = lambda: not isinstance(app.screen, NoteScreen | UnsavedNoteScreen)  # noqa: E731
+        await until(pilot, closed, "editor closed")
         assert drafts_in(reviews) == {}
         assert session(app).store.get(key) is None
         await open_editor(app, pilot)

@@ -214,7 +214,7 @@ def test_export_of_all_rows_needs_no_review_file(tmp_path, capsys):
     assert code == 0, capsys.readouterr().err
     written = pl.read_csv(out)
     assert written.height == 3
-    assert written["flagged"].to_list() == [False] * 3
+    assert written["flag"].to_list() == ["no"] * 3
     assert not reviews.exists(), "reading reviews creates no review file"
     flagged = tmp_path / "flagged.csv"
     assert main(["export", str(data), "--reviews", str(reviews), "--out", str(flagged)]) == 2

@@ -36,6 +36,7 @@ from foldsift.stats.scan import Reference, ScanSettings, run_scan
 from foldsift.stats.summary_input import scan_summary_table
 from foldsift.stats.vocabulary import WARNING_NAMES
 from foldsift.tui.cli import main
+from foldsift.tui.export import SHORT_COLUMNS, ExportForm
 from foldsift.tui.session import ReviewSession, SessionOptions
 from foldsift.tui.store import ReviewStore
 
@@ -218,30 +219,37 @@ def _reviewed_demo(tmp_path: Path) -> tuple[Path, Path]:
         (["--filter", "copper q<0.5 -warn:small-n"], "shown", "copper q<0.5 -warn:small-n"),
     ],
 )
+@pytest.mark.parametrize("columns", ["full", "short"])
 def test_command_line_export_equals_the_session_export_byte_for_byte(
-    tmp_path, capsys, arguments, which, words
+    tmp_path, capsys, arguments, which, words, columns
 ):
     """`foldsift export` and the session (which the app's export goes through) write the
     same bytes for the same selection, in the app's default order (smallest q first)."""
     data, reviews = _reviewed_demo(tmp_path)
     out = tmp_path / "cli.csv"
+    arguments = [*arguments, "--columns", columns]
     code = main(["export", str(data), "--reviews", str(reviews), "--out", str(out), *arguments])
     assert code == 0, capsys.readouterr().err
     session = ReviewSession.open(SessionOptions(data, reviews_path=reviews))
     try:
         assert session.set_filter(words) is None
-        report = session.export(tmp_path / "session.csv", which)
+        report = session.export(tmp_path / "session.csv", which, form=ExportForm(columns))
     finally:
         session.close()
     assert out.read_bytes() == report.path.read_bytes()
     written = pl.read_csv(out)
     assert written.height == report.rows > 0
-    q = written["q_bh"].to_list()
+    q = written["q_bh" if columns == "full" else "q"].to_list()
     assert q == sorted(q, key=lambda v: math.inf if v is None else v)
     meta = json.loads((tmp_path / "cli.csv.settings.json").read_text())
     assert meta["settings"]["rows_chosen"] == which
     assert meta["settings"]["filter"] == words
-    assert list(written.columns) == [*EXPORT_SCHEMA, col.SENTENCE]
+    if columns == "full":
+        assert list(written.columns) == [*EXPORT_SCHEMA, col.SENTENCE]
+    else:
+        assert list(written.columns) == [
+            c for c in SHORT_COLUMNS if c not in (col.WITHIN, col.STRATUM)
+        ]
 
 
 def test_export_refuses_a_bad_filter_word(tmp_path, capsys):
@@ -287,7 +295,7 @@ def test_cross_checks_agree_between_scan_export_and_session(tmp_path, capsys):
     export_out = tmp_path / "export.csv"
     code = main(
         ["export", str(data), "--reviews", str(reviews), "--robust", "--resamples", "400"]
-        + ["--out", str(export_out)]
+        + ["--out", str(export_out), "--columns", "full"]
     )
     assert code == 0
     # Every row read before the column types are chosen: a column empty in its first rows

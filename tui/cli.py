@@ -24,6 +24,7 @@ from foldsift.stats.vocabulary import (
     TESTS,
 )
 
+from .export import COLUMN_SETS, DEFAULT_DIGITS, MAX_DIGITS, ExportForm
 from .session import SELECTIONS, ReviewSession, Selection, SessionOptions, scan
 
 EXIT_BAD_INPUT = 2
@@ -178,9 +179,7 @@ def _add_method_options(method: argparse._ArgumentGroup) -> None:
         metavar="LEVEL",
         help="reference level (denominator) for --pairs reference; LEVEL or GROUPING=LEVEL (repeat)",
     )
-    method.add_argument(
-        "--test", choices=TESTS, default="welch", help="t-test on the logs (default welch)"
-    )
+    method.add_argument("--test", choices=TESTS, default="welch", help="t-test on the logs")
     method.add_argument(
         "--confidence",
         type=_confidence,
@@ -217,11 +216,30 @@ def _add_method_options(method: argparse._ArgumentGroup) -> None:
         metavar="LOW,HIGH",
         help="ratio band of no practical difference, judged with the 90%% CI (default 0.80,1.25)",
     )
+    _add_design_options(method)
     method.add_argument(
         "--target-ratio",
         type=_ratio,
         metavar="R",
         help="also report the n per group needed to detect ratio R",
+    )
+
+
+def _add_design_options(method: argparse._ArgumentGroup) -> None:
+    method.add_argument(
+        "--pair-by",
+        metavar="COL",
+        help="the unit measured at several levels (well, patient, plot): compare levels "
+        "within units by a paired t on the logs (several values of a unit at one level: "
+        "their geometric mean, or refused with --duplicates refuse)",
+    )
+    method.add_argument(
+        "--period", metavar="COL", help="2x2 crossover: the period column (with --sequence)"
+    )
+    method.add_argument(
+        "--sequence",
+        metavar="COL",
+        help="2x2 crossover: the sequence column (with --period and --pair-by the subject)",
     )
 
 
@@ -238,6 +256,10 @@ def settings_from(args: argparse.Namespace) -> ScanSettings:
         target_ratio=args.target_ratio,
         within=args.within,
         max_comparisons=args.max_comparisons,
+        pair_by=args.pair_by,
+        pair_duplicates="refuse" if args.duplicates == "refuse" else "mean-log",
+        period=args.period,
+        sequence=args.sequence,
     )
 
 
@@ -434,7 +456,16 @@ def _export_selection(args: argparse.Namespace) -> Selection:
     return "shown" if args.filter else "flagged"
 
 
+def _export_form(args: argparse.Namespace) -> ExportForm:
+    """The form of the CSV: ``--columns``, ``--digits`` (short form only), ``--bom``."""
+    if args.columns == "full" and args.digits is not None:
+        raise InputError("--digits rounds the short export; --columns full keeps full precision")
+    digits = DEFAULT_DIGITS if args.digits is None else args.digits
+    return ExportForm(columns=args.columns, digits=digits, bom=args.bom)
+
+
 def command_export(args: argparse.Namespace) -> int:
+    form = _export_form(args)
     _check_out(args.out, args)
     options = options_from(args)
     which = _export_selection(args)
@@ -456,7 +487,8 @@ def command_export(args: argparse.Namespace) -> int:
             print(file=sys.stderr)
         _say_unmatched(session.unmatched_reviews, options.review_file)
         return _guarded_write(
-            args, lambda: session.export(args.out, which, overwrite=args.overwrite).rows
+            args,
+            lambda: session.export(args.out, which, overwrite=args.overwrite, form=form).rows,
         )
     finally:
         session.close()
@@ -563,6 +595,39 @@ def _add_export_command(export: argparse.ArgumentParser) -> None:
     export.add_argument("--out", type=Path, required=True, metavar="FILE.csv")
     export.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
     _add_formula_option(export)
+    _add_form_options(export)
+
+
+def _digits(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number; use e.g. 4") from None
+    if not 1 <= value <= MAX_DIGITS:
+        raise argparse.ArgumentTypeError(f"{text}: give 1 to {MAX_DIGITS} significant digits")
+    return value
+
+
+def _add_form_options(export: argparse.ArgumentParser) -> None:
+    form = export.add_argument_group("the CSV's form")
+    form.add_argument(
+        "--columns",
+        choices=COLUMN_SETS,
+        default="short",
+        help="short (default): the columns a colleague reads, numbers rounded, each note on "
+        "one line; full: every column at full precision",
+    )
+    form.add_argument(
+        "--digits",
+        type=_digits,
+        metavar="N",
+        help=f"significant digits of the short export's numbers (default {DEFAULT_DIGITS})",
+    )
+    form.add_argument(
+        "--bom",
+        action="store_true",
+        help="start the CSV with a UTF-8 byte-order mark (for spreadsheet programs that need it)",
+    )
 
 
 def _add_formula_option(parser: argparse.ArgumentParser) -> None:

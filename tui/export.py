@@ -13,6 +13,18 @@ Every CSV foldsift writes goes through ``write_export``:
   formula (the practice web-security guidance recommends for CSV files); numbers stay
   numbers, and so do text cells that are plain numbers (``-5``). ``allow_formulas=True``
   turns this off.
+
+Two forms of the CSV (``ExportForm``):
+
+- **short** (the default of the app and of ``foldsift export``): the columns a colleague
+  reads (``SHORT_COLUMNS``, and the cross-checks when any row has them), the outcome by
+  its readable name, numbers rounded to a stated number of significant digits (4 by
+  default), each note on one line (``escape_note``).
+- **full**: every column of the comparison, the cross-checks and the review, numbers at
+  full precision, notes as typed.
+
+Either may start with a UTF-8 byte-order mark, which some spreadsheet programs need to read
+the file as UTF-8. The sidecar's ``settings.export`` says which form was written.
 """
 
 from __future__ import annotations
@@ -20,24 +32,40 @@ from __future__ import annotations
 import contextlib
 import glob
 import json
+import math
 import os
+import re
 import secrets
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from datetime import UTC, datetime
+from decimal import Decimal
 from pathlib import Path
-from typing import Any, BinaryIO
+from typing import Any, BinaryIO, Literal, get_args
 
 import polars as pl
 
+from foldsift.stats import columns as col
 from foldsift.stats.columns import csv_ready
+from foldsift.stats.formatting import readable_outcome
 
 __all__ = [
+    "COLUMN_SETS",
+    "DEFAULT_FORM",
     "SELECTIONS",
+    "SHORT_COLUMNS",
+    "ColumnSet",
     "ExportError",
+    "ExportForm",
+    "csv_rows",
+    "escape_note",
     "guard_formulas",
     "join_reviews",
     "select_rows",
     "settings_path",
+    "short_export",
+    "significant",
+    "unescape_note",
     "write_export",
 ]
 
@@ -103,6 +131,152 @@ def select_rows(joined: pl.DataFrame, which: str = "flagged") -> pl.DataFrame:
     raise ValueError(f"unknown row selection {which!r}; use one of {', '.join(SELECTIONS)}")
 
 
+# -- the two forms of an export -------------------------------------------------------------
+
+#: Which columns an export writes: the short set a colleague reads, or every column.
+ColumnSet = Literal["short", "full"]
+COLUMN_SETS: tuple[ColumnSet, ...] = get_args(ColumnSet)
+DEFAULT_DIGITS = 4
+#: 17 significant digits write every float64 exactly (IEEE 754-2008, 5.12.2).
+MAX_DIGITS = 17
+#: How a note is put on one line in the short export (said in the sidecar and the README).
+NOTE_ESCAPES = {"\\": "\\\\", "\n": "\\n", "\r": "\\r"}
+NOTE_ESCAPING = (
+    "each note on one line: a line break is written as the two characters \\n, a carriage "
+    "return as \\r, and a backslash as two backslashes \\\\"
+)
+
+
+@dataclass(frozen=True)
+class ExportForm:
+    """How an export is written: which columns, how many significant digits (short form
+    only; the full form keeps full precision), and whether a byte-order mark comes first."""
+
+    columns: ColumnSet = "short"
+    digits: int = DEFAULT_DIGITS
+    bom: bool = False
+
+    def __post_init__(self) -> None:
+        if self.columns not in COLUMN_SETS:
+            raise ValueError(f"unknown column set {self.columns!r}; use short or full")
+        if not 1 <= self.digits <= MAX_DIGITS:
+            raise ValueError(f"{self.digits} significant digits: give 1 to {MAX_DIGITS}")
+
+    def describe(self) -> dict[str, Any]:
+        """The form as the sidecar records it (``settings.export``)."""
+        short = self.columns == "short"
+        return {
+            "columns": self.columns,
+            "digits": self.digits if short else None,
+            "numbers": f"rounded to {self.digits} significant digits"
+            if short
+            else "full precision",
+            "notes": NOTE_ESCAPING if short else "as typed; line breaks inside quoted cells",
+            "byte_order_mark": self.bom,
+        }
+
+
+DEFAULT_FORM = ExportForm()
+
+#: The short export's columns, in CSV order, named as they are written.
+SHORT_COLUMNS = (
+    col.OUTCOME,
+    col.UNIT,
+    col.GROUPING,
+    col.WITHIN,
+    col.STRATUM,
+    col.LEVEL_A,
+    col.LEVEL_B,
+    col.N_A,
+    col.N_B,
+    "gm_a",
+    "gm_b",
+    col.RATIO,
+    col.CI_LOW,
+    col.CI_HIGH,
+    "p",
+    "q",
+    "class",
+    "method",
+    col.WARNINGS,
+    "flag",
+    col.DECISION,
+    col.NOTE,
+    col.SENTENCE,
+)
+#: Full-export columns that the short export writes under a shorter name.
+SHORT_NAMES = {col.P_VALUE: "p", col.Q_BH: "q", col.BAND_CLASS: "class", col.FLAGGED: "flag"}
+#: The columns the short export rounds (counts stay whole numbers).
+ROUNDED = ("gm_a", "gm_b", col.RATIO, col.CI_LOW, col.CI_HIGH, col.P_VALUE, col.Q_BH)
+#: Written by the short export after ``method`` when any of its rows has cross-checks.
+CROSS_CHECKS = tuple(col.CROSS_CHECK_SCHEMA)
+#: Below this power of ten a rounded number is written out in full (12340, not 1.234e+04).
+_PLAIN_BELOW = 16
+
+
+def significant(value: float | None, digits: int = DEFAULT_DIGITS) -> str | None:
+    """``value`` rounded to ``digits`` significant digits, as Python's ``format(value,
+    '.4g')`` rounds it, written without an exponent up to 10^15 (``12340``); None for a
+    missing value or NaN, ``inf`` for an infinite one."""
+    if value is None or math.isnan(value):
+        return None
+    text = format(value, f".{digits}g")
+    _, plus, exponent = text.partition("e+")
+    if plus and int(exponent) < _PLAIN_BELOW:
+        return format(Decimal(text), "f")
+    return text
+
+
+def escape_note(note: pl.Expr) -> pl.Expr:
+    """The note on one line (``NOTE_ESCAPING``); ``unescape_note`` reads it back."""
+    for plain, escaped in NOTE_ESCAPES.items():  # the backslash first
+        note = note.str.replace_all(plain, escaped, literal=True)
+    return note
+
+
+_ESCAPED = re.compile(r"\\([\\nr])")
+_UNESCAPES = {escaped[1]: plain for plain, escaped in NOTE_ESCAPES.items()}
+
+
+def unescape_note(text: str) -> str:
+    """A note of a short export as it was typed."""
+    return _ESCAPED.sub(lambda match: _UNESCAPES[match.group(1)], text)
+
+
+def short_export(frame: pl.DataFrame, digits: int, *, stratified: bool) -> pl.DataFrame:
+    """The short form of an export frame (the full columns and their ``sentence``):
+    ``SHORT_COLUMNS``, the outcome by its readable name, numbers as text rounded to
+    ``digits`` significant digits, ``flag`` as yes/no, notes on one line. ``within`` and
+    ``stratum`` only when the scan compared inside strata (``stratified``); the
+    cross-check columns only when a row has cross-checks."""
+    labels = {name: readable_outcome(name) for name in frame[col.OUTCOME].unique()}
+    checked = frame.select(pl.any_horizontal(pl.col(CROSS_CHECKS).is_not_null()).any()).item()
+    checks = CROSS_CHECKS if checked else ()
+    rounded = [
+        pl.Series(name, [significant(v, digits) for v in frame[name]], dtype=pl.String)
+        for name in (*ROUNDED, *checks)
+    ]
+    frame = frame.with_columns(
+        pl.col(col.OUTCOME).replace_strict(labels, return_dtype=pl.String),
+        *rounded,
+        pl.when(pl.col(col.FLAGGED)).then(pl.lit("yes")).otherwise(pl.lit("no")).alias(col.FLAGGED),
+        escape_note(pl.col(col.NOTE)),
+    ).rename(SHORT_NAMES)
+    strata = () if stratified else (col.WITHIN, col.STRATUM)
+    names = [name for name in SHORT_COLUMNS if name not in strata]
+    after = names.index("method") + 1
+    return frame.select(*names[:after], *checks, *names[after:])
+
+
+def csv_rows(path: Path) -> int | None:
+    """How many rows the CSV at ``path`` holds (quoted line breaks read as CSV does), or
+    None when it cannot be read as a CSV."""
+    try:
+        return int(pl.scan_csv(path, infer_schema=False).select(pl.len()).collect().item())
+    except (OSError, pl.exceptions.PolarsError):
+        return None
+
+
 def settings_path(csv_path: Path) -> Path:
     """The sidecar JSON written next to ``csv_path``: ``<csv name>.settings.json``."""
     csv_path = Path(csv_path)
@@ -144,13 +318,15 @@ def write_export(
     *,
     protect: Sequence[Path] = (),
     allow_formulas: bool = False,
+    bom: bool = False,
 ) -> Path:
     """Write ``frame`` to ``path`` as CSV and the settings to ``<path>.settings.json``.
 
     The JSON holds ``settings`` under the key ``"settings"`` (kept apart so a setting can
     never collide with the fields added here) plus ``exported_at``, ``rows``, ``columns``,
     ``csv`` and ``formulas_guarded``. Existing files are only replaced when ``overwrite``
-    is true; the files in ``protect`` (the input data) never are.
+    is true; the files in ``protect`` (the input data) never are. With ``bom``, the CSV
+    starts with the UTF-8 byte-order mark.
     """
     path = _target(path, protect)
     sidecar = settings_path(path)
@@ -176,7 +352,7 @@ def write_export(
         meta, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default
     )
 
-    csv_tmp = _write_temp(path, lambda fh: frame.write_csv(fh))
+    csv_tmp = _write_temp(path, lambda fh: frame.write_csv(fh, include_bom=bom))
     try:
         json_tmp = _write_temp(sidecar, lambda fh: fh.write(meta_text.encode("utf-8") + b"\n"))
     except BaseException:

@@ -91,12 +91,15 @@ def scan(options: SessionOptions) -> ScanResult:
                 f"{options.data_path}: a summary table names its groupings and outcomes itself"
             )
         return scan_summary_table(options.data_path, options.settings)
+    settings = options.settings
+    design = [c for c in (settings.pair_by, settings.period, settings.sequence) if c]
     table = load_table(
         options.data_path,
         groupings=options.groupings,
         outcomes=options.outcomes,
         reading=options.reading,
         long=options.long,
+        design=design,
     )
     return run_scan(table, options.settings)
 
