@@ -61,6 +61,15 @@ class GroupValues:
     def specs(self) -> list[GroupSpec]:
         return list(self._specs)
 
+    @property
+    def frame(self) -> pl.DataFrame:
+        """The policy-applied table the values come from."""
+        return self._used
+
+    @property
+    def names(self) -> DerivedNames:
+        return self._names
+
     def _partition(self, spec: GroupSpec) -> dict[tuple[str | None, str], pl.DataFrame]:
         with self._lock:
             if spec not in self._parts:

@@ -303,13 +303,20 @@ async def test_filter_with_negation_and_letters_that_are_keys(tmp_path: Path, de
 async def test_filter_with_no_match_and_a_bad_word(tmp_path: Path, demo_scan) -> None:
     total = demo_scan.comparisons.height
     async with running(tmp_path) as (app, pilot):
-        await pilot.press("slash", *"no-such-outcome")
+        # A well-formed condition that no row meets shows no rows and says so.
+        await pilot.press("slash", *"q<0")
         await pilot.pause()
         assert shown(app).height == 0
         assert "No comparison matches the filter." in sentence(app)
         assert f"shown 0/{total}" in status(app)
-        # The bad word is reported, the list does not crash and shows everything.
+        # A word no name contains is an error, not zero rows in silence.
         filter_input = review(app).query_one("#filter", Input)
+        filter_input.value = ""
+        await pilot.press(*"no-such-outcome")
+        await pilot.pause()
+        assert "no outcome, grouping or level name contains" in status(app)
+        assert shown(app).height == total
+        # The bad word is reported, the list does not crash and shows everything.
         filter_input.value = ""
         await pilot.press(*"q<<0.05")
         await pilot.pause()

@@ -24,6 +24,7 @@ from foldsift.stats.columns import (
     earlier_key_expression,
     reviewed_row,
 )
+from foldsift.stats.design import unit_ratios
 from foldsift.stats.load import InputError, ReadOptions, load_table
 from foldsift.stats.long import LongOptions
 from foldsift.stats.robust import (
@@ -429,6 +430,21 @@ class ReviewSession:
             return np.empty(0), np.empty(0)
         values = self.result.values.values
         return values(group_id(row, "a")), values(group_id(row, "b"))
+
+    def pair_ratios(self, row: ReviewedRow) -> np.ndarray:
+        """The within-unit ratios of a paired or crossover row (empty for other rows or
+        without raw data)."""
+        values, unit = self.result.values, row["pair_by"]
+        if values is None or unit is None:
+            return np.empty(0)
+        return unit_ratios(
+            values.frame,
+            values.names.used(row["outcome"]),
+            unit,
+            (row["grouping"], row["within"], row["stratum"]),
+            row["level_a"],
+            row["level_b"],
+        )
 
     def group_limits(self, row: ReviewedRow) -> tuple[np.ndarray, np.ndarray]:
         """The distinct detection limits of both groups' below-detection entries (empty

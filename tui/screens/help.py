@@ -44,7 +44,11 @@ KEYS: tuple[tuple[str, str], ...] = (
 LIST_COLUMNS: tuple[tuple[str, str], ...] = (
     ("⚑", "flagged (always)"),
     ("outcome", "the measured column, with its unit (always)"),
-    ("level b ÷ level a", "the two groups compared: b over a, a is the reference (always)"),
+    (
+        "level b ÷ level a",
+        "the two groups compared: b over a, a is the reference; ⇄ instead of ÷ when they "
+        "were compared within the same units (--pair-by) (always)",
+    ),
     ("ratio", "geometric mean of b ÷ geometric mean of a (always)"),
     ("CI", "its confidence interval (always)"),
     ("q", "Benjamini-Hochberg adjusted p across the family (always)"),

@@ -177,6 +177,7 @@ class ReviewScreen(Screen[None]):
             self.session.result.settings.band,
             self.session.group_values,
             self.session.group_limits,
+            ratios_of=self.session.pair_ratios,
             id="detail",
         )
         yield Footer()

@@ -48,6 +48,12 @@ def _warnings(row: ReviewedRow) -> str:
     return f"!{row['warning_count']}" if row["warning_count"] else ""
 
 
+def _levels(row: ReviewedRow) -> str:
+    """``b ÷ a``; ``b ⇄ a`` when the levels were compared within the same units (paired)."""
+    between = "⇄" if row["pair_by"] is not None else "÷"
+    return f"{row['level_b']} {between} {row['level_a']}"
+
+
 def _class(row: ReviewedRow) -> str:
     return str(row["band_class"] or "")
 
@@ -59,7 +65,7 @@ def _class(row: ReviewedRow) -> str:
 COLUMNS: tuple[Column, ...] = (
     Column("⚑", 1, col.FLAGGED, lambda r: "⚑" if r["flagged"] else " "),
     Column("outcome", 12, col.OUTCOME, lambda r: r["outcome_label"]),
-    Column("level b ÷ level a", 14, col.LEVEL_B, lambda r: f"{r['level_b']} ÷ {r['level_a']}"),
+    Column("level b ÷ level a", 14, col.LEVEL_B, _levels),
     Column("ratio", 7, col.RATIO, lambda r: ratio_text(r["ratio"]), right=True),
     Column("CI", 12, col.CI_LOW, lambda r: interval_text(r["ci_low"], r["ci_high"])),
     Column("q", 7, col.Q_BH, lambda r: p_text(r["q_bh"]), right=True),

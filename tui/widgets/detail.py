@@ -22,7 +22,10 @@ from foldsift.stats.sentence import readable_outcome
 from .facts import facts_text
 from .histograms import STYLE_A, STYLE_B, Group, draw_groups
 from .plain import visible
+from .ratio_strip import ratio_strip
 
+#: The within-unit ratios of a paired row.
+RatiosOf = Callable[[ReviewedRow], np.ndarray]
 #: Both groups' usable values for a row: (a, b).
 ValuesOf = Callable[[ReviewedRow], tuple[np.ndarray, np.ndarray]]
 
@@ -91,11 +94,19 @@ class Charts(Static):
     DELAY = 0.06
 
     def __init__(
-        self, values_of: ValuesOf, limits_of: ValuesOf | None = None, *, id: str | None = None
+        self,
+        values_of: ValuesOf,
+        limits_of: ValuesOf | None = None,
+        *,
+        ratios_of: RatiosOf | None = None,
+        band: tuple[float, float] = (0.8, 1.25),
+        id: str | None = None,
     ) -> None:
         super().__init__("", id=id)
         self._values_of = values_of
         self._limits_of = limits_of
+        self._ratios_of = ratios_of
+        self._band = band
         self._row: ReviewedRow | None = None
         self._timer: Timer | None = None
 
@@ -121,8 +132,20 @@ class Charts(Static):
         limits_a, limits_b = self._limits_of(row) if self._limits_of else (np.empty(0),) * 2
         a = _group(row, "a", values_a, limits_a)
         b = _group(row, "b", values_b, limits_b)
-        drawing = draw_groups(a, b, width=width, height=height, title=_chart_title(row))
-        self.update(drawing.text, layout=False)
+        strip = self._strip(row, width) if height >= 9 else None
+        rest = height - (4 if strip is not None else 0)
+        drawing = draw_groups(a, b, width=width, height=rest, title=_chart_title(row))
+        self.update(
+            drawing.text if strip is None else Text.assemble(strip, "\n\n", drawing.text),
+            layout=False,
+        )
+
+    def _strip(self, row: ReviewedRow, width: int) -> Text | None:
+        """The within-unit ratios of a paired row (None for other rows)."""
+        if self._ratios_of is None or row["pair_by"] is None:
+            return None
+        band = self._band
+        return ratio_strip(self._ratios_of(row), row["ratio"], band, width, row["pair_by"])
 
 
 def _group(row: ReviewedRow, which: str, values: np.ndarray, limits: np.ndarray) -> Group:
@@ -168,16 +191,24 @@ class Detail(Horizontal):
         values_of: ValuesOf,
         limits_of: ValuesOf | None = None,
         *,
+        ratios_of: RatiosOf | None = None,
         id: str | None = None,
     ) -> None:
         super().__init__(id=id)
+        self._ratios_of = ratios_of
         self._band = band
         self._values_of = values_of
         self._limits_of = limits_of
 
     def compose(self) -> ComposeResult:
         yield Facts(self._band, id="facts")
-        yield Charts(self._values_of, self._limits_of, id="plots")
+        yield Charts(
+            self._values_of,
+            self._limits_of,
+            ratios_of=self._ratios_of,
+            band=self._band,
+            id="plots",
+        )
 
     def watch_subject(self, old: Subject, new: Subject) -> None:
         try:

@@ -102,6 +102,11 @@ METHOD_REMARKS = {
     "nondetects left out": "below-detection entries left out",
     "DL/2 substituted": "below-detection entries set to half the limit",
     "DL/sqrt2 substituted": "below-detection entries set to the limit / sqrt(2)",
+    "paired t on logs": "within-unit log ratios (units measured at both levels)",
+    "paired t, nondetects left out": "within-unit log ratios; units below detection left out",
+    "paired t, DL/2 substituted": "within-unit log ratios; below detection set to DL/2",
+    "paired t, DL/sqrt2 substituted": "within-unit log ratios; below detection set to DL/sqrt(2)",
+    "2x2 crossover": "analysis of variance on the logs: sequence, subject, period, treatment",
 }
 #: Rows shown only when either group has such entries (laboratory codes).
 CODE_ROWS: tuple[tuple[str, str, Callable[[Any], str]], ...] = (
@@ -173,8 +178,10 @@ def _estimates(table: _Table, row: ReviewedRow, band: tuple[float, float]) -> No
         table.line("with DL/2 instead", ratio_text(row["half_dl_ratio"]), f"{level} CI {half_ci}")
     change = f"change {percent_text(row['percent_change'])}"
     table.line("ratio of medians", ratio_text(row["median_ratio"]), change)
-    degrees = f"df {number_text(row['df'])} ({test} t on logs)"
+    on = f"{test} t on logs" if row["pair_by"] is None else "paired"
+    degrees = f"df {number_text(row['df'])} ({on})"
     table.line("log2 ratio", number_text(row["log2_ratio"]), degrees)
+    _pairing(table, row)
     adjusted = f"Holm {p_text(row['p_holm'])} · q {p_text(row['q_bh'])}"
     table.line("p", p_text(row["p_value"]), adjusted)
     tost = interval_text(row["tost_ci_low"], row["tost_ci_high"], " to ")
@@ -183,6 +190,23 @@ def _estimates(table: _Table, row: ReviewedRow, band: tuple[float, float]) -> No
     table.line("CI high/low", number_text(row["ci_fold"]), detectable)
     if row["n_needed"] is not None:
         table.line("n per group needed", number_text(row["n_needed"]), "for the target ratio")
+
+
+def _pairing(table: _Table, row: ReviewedRow) -> None:
+    """The units of a paired or crossover comparison: pairs, units left unpaired, values
+    combined, the within-unit CV and the unit behind ``unit-dominates``."""
+    if row["pair_by"] is None:
+        return
+    unit = visible(row["pair_by"])
+    unpaired = (row["n_only_a"] or 0) + (row["n_only_b"] or 0) + (row["n_unpaired_left_out"] or 0)
+    remark = f"{unit}s at both levels; {count_text(unpaired)} unpaired"
+    if row["n_combined"]:
+        remark += f", {count_text(row['n_combined'])} combined"
+    table.line("pairs", count_text(row["n_pairs"]), remark)
+    cv = row["within_cv"]
+    table.line("within-unit CV", MISSING if cv is None else f"{cv:.1%}", f"within the same {unit}")
+    if row["influential_unit"]:
+        table.line("dominant unit", visible(row["influential_unit"]), "see unit-dominates")
 
 
 def _cross_checks(table: _Table, row: ReviewedRow, check: RobustCheck | None) -> None:
