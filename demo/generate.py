@@ -58,8 +58,20 @@ hold the same measurements:
   times the accepted result) before the accepted re-run.
 * The wide file's empty cells are, in turn, a row left out and a row with an empty result.
 
-Run ``python -m foldsift.demo.generate`` to rewrite ``marrowby_soils.csv`` and
-``marrowby_soils_lab.csv`` beside this file.
+The same plots in two years
+---------------------------
+``generate_plots`` writes ``marrowby_plots.csv``: fixed monitoring plots (``PLOTS_PER_FIELD``
+in each field), sampled in 2025 and again in 2026, after the farm moved from a granular
+fertiliser to a slow-release one on every field. Each plot has its own level (a plot effect
+with log-SD ``PLOT_SD``, shared by its two years) and each sampling its own noise
+(``SAMPLING_SD``); the planted year effects are ``YEAR_EFFECTS`` (nitrate 0.7×, the others
+1.0×). A few plots were not sampled in one of the years (``MISSED_PLOTS``) and one plot was
+sampled twice in 2026 (``REPEATED_PLOT``), so a paired scan (``--pair-by plot``) counts
+unpaired plots and combines the repeat. Comparing the years as independent groups ignores
+the plot effect and gives a much wider interval.
+
+Run ``python -m foldsift.demo.generate`` to rewrite ``marrowby_soils.csv``,
+``marrowby_soils_lab.csv`` and ``marrowby_plots.csv`` beside this file.
 """
 
 from __future__ import annotations
@@ -182,6 +194,20 @@ SIG_DIGITS = 3
 """Significant digits for values written above the detection limit."""
 
 DEMO_CSV = Path(__file__).with_name("marrowby_soils.csv")
+PLOTS_CSV = Path(__file__).with_name("marrowby_plots.csv")
+PLOTS_PER_FIELD = 8
+YEARS: tuple[str, ...] = ("2025", "2026")
+PLOT_ANALYTES: dict[str, float] = {
+    # name: baseline median (mg/kg)
+    "nitrate_mg_per_kg": 18.0,
+    "phosphorus_olsen_mg_per_kg": 22.0,
+    "potassium_mg_per_kg": 180.0,
+}
+YEAR_EFFECTS: dict[str, float] = {"nitrate_mg_per_kg": 0.7}
+PLOT_SD = 0.6
+SAMPLING_SD = 0.15
+MISSED_PLOTS: dict[str, str] = {"P07": "2026", "P19": "2025", "P33": "2026"}
+REPEATED_PLOT = ("P12", "2026")
 LAB_CSV = Path(__file__).with_name("marrowby_soils_lab.csv")
 
 NAME_UNITS: dict[str, str] = {
@@ -477,6 +503,44 @@ def write_demo(path: str | Path | None = None) -> Path:
     return target
 
 
+def generate_plots(seed: int = SEED) -> pl.DataFrame:
+    """The monitoring plots sampled in two years (see the module doc): ``plot``, ``field``,
+    ``year`` and one column per analyte in ``PLOT_ANALYTES``, rounded to ``SIG_DIGITS``."""
+    rng = np.random.default_rng(seed + 1)
+    plots = [
+        (f"P{number:02d}", field)
+        for number, field in enumerate((f for f in FIELDS for _ in range(PLOTS_PER_FIELD)), start=1)
+    ]
+    levels = {a: rng.normal(0.0, PLOT_SD, len(plots)) for a in PLOT_ANALYTES}
+    rows: list[dict[str, str]] = []
+    for index, (plot, field) in enumerate(plots):
+        for year in YEARS:
+            if MISSED_PLOTS.get(plot) == year:
+                continue
+            repeats = 2 if (plot, year) == REPEATED_PLOT else 1
+            for _ in range(repeats):
+                row = {"plot": plot, "field": field, "year": year}
+                for analyte, median in PLOT_ANALYTES.items():
+                    effect = YEAR_EFFECTS.get(analyte, 1.0) if year == YEARS[1] else 1.0
+                    log_value = math.log(median * effect) + levels[analyte][index]
+                    row[analyte] = format_value(math.exp(log_value + rng.normal(0, SAMPLING_SD)))
+                rows.append(row)
+    return pl.DataFrame(rows)
+
+
+def write_plots(path: str | Path | None = None) -> Path:
+    """Write the two-year plot survey (default ``PLOTS_CSV``); return the path written."""
+    target = PLOTS_CSV if path is None else Path(path)
+    generate_plots().write_csv(target)
+    return target
+
+
+def plots_path() -> Path:
+    """The two-year plot survey beside this module."""
+    return PLOTS_CSV
+
+
 if __name__ == "__main__":
     print(f"wrote {write_demo()}")
     print(f"wrote {write_lab()}")
+    print(f"wrote {write_plots()}")
