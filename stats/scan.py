@@ -611,7 +611,15 @@ def _with_design(frame: pl.DataFrame, design: pl.DataFrame | None) -> pl.DataFra
     """The comparisons with the design rows joined (null columns without a design)."""
     rows = design if design is not None else pl.DataFrame(schema=DESIGN_SCHEMA)
     joined = frame.join(rows, on=_IDENTITY, how="left", nulls_equal=True)
+    # A paired comparison whose two levels hold no below-detection entry is plain.
+    plain = (pl.col("n_censored_a") + pl.col("n_censored_b") == 0) & pl.col(
+        "design_method"
+    ).str.starts_with("paired t,")
     return joined.with_columns(
+        pl.when(plain)
+        .then(pl.lit("paired t on logs"))
+        .otherwise(pl.col("design_method"))
+        .alias("design_method"),
         pl.col("design_warnings").fill_null(pl.lit([], pl.List(pl.Enum(list(WARNING_NAMES))))),
         pl.coalesce("design_gm_a", "gm_a").alias("gm_a"),
         pl.coalesce("design_gm_b", "gm_b").alias("gm_b"),

@@ -94,14 +94,21 @@ def censored_phrase(row: ComparisonRow) -> str:
     above = row["n_right_a"] + row["n_right_b"]
     if above:
         share += f" and {above} above the range"
-    how = {
-        "censored ML": "fitted by censored maximum likelihood",
-        "nondetects left out": "left out",
-        "DL/2 substituted": "replaced by half the detection limit",
-        "DL/sqrt2 substituted": "replaced by the detection limit divided by sqrt(2)",
-        "t-test on logs": "",
-    }[row["method"]]
+    how = _TREATMENT.get(row["method"], "")
     return f"{share}, {how}" if how else share
+
+
+#: How each method treats below-detection entries, in words (none for plain methods).
+_TREATMENT = {
+    "censored ML": "fitted by censored maximum likelihood",
+    "nondetects left out": "left out",
+    "DL/2 substituted": "replaced by half the detection limit",
+    "DL/sqrt2 substituted": "replaced by the detection limit divided by sqrt(2)",
+    "paired t, nondetects left out": "left out of the pairs",
+    "paired t, DL/2 substituted": "replaced by half the detection limit",
+    "paired t, DL/sqrt2 substituted": "replaced by the detection limit divided by sqrt(2)",
+    "2x2 crossover": "left out",
+}
 
 
 def times_words(value: float | None, folded: bool | None = None) -> str:
