@@ -22,7 +22,7 @@ from textual.strip import Strip
 
 from foldsift.stats import columns as col
 from foldsift.stats.columns import ReviewedRow, reviewed_row
-from foldsift.stats.formatting import interval_text, p_text, percent_text, ratio_text
+from foldsift.stats.formatting import any_fold, interval_text, p_text, percent_text, ratio_text
 
 from .plain import visible
 
@@ -48,6 +48,11 @@ def _warnings(row: ReviewedRow) -> str:
     return f"!{row['warning_count']}" if row["warning_count"] else ""
 
 
+def _ratio(row: ReviewedRow) -> str:
+    """The ratio, as a fold when its CI is written as folds (one rule in one row)."""
+    return ratio_text(row["ratio"], any_fold(row["ratio"], row["ci_low"], row["ci_high"]))
+
+
 def _levels(row: ReviewedRow) -> str:
     """``b ÷ a``; ``b ⇄ a`` when the levels were compared within the same units (paired)."""
     between = "⇄" if row["pair_by"] is not None else "÷"
@@ -66,7 +71,7 @@ COLUMNS: tuple[Column, ...] = (
     Column("⚑", 1, col.FLAGGED, lambda r: "⚑" if r["flagged"] else " "),
     Column("outcome", 12, col.OUTCOME, lambda r: r["outcome_label"]),
     Column("level b ÷ level a", 14, col.LEVEL_B, _levels),
-    Column("ratio", 7, col.RATIO, lambda r: ratio_text(r["ratio"]), right=True),
+    Column("ratio", 7, col.RATIO, _ratio, right=True),
     Column("CI", 12, col.CI_LOW, lambda r: interval_text(r["ci_low"], r["ci_high"])),
     Column("q", 7, col.Q_BH, lambda r: p_text(r["q_bh"]), right=True),
     Column("p", 7, col.P_VALUE, lambda r: p_text(r["p_value"]), right=True),
