@@ -90,3 +90,35 @@ async def test_the_list_shows_that_it_has_the_keys(tmp_path: Path):
         await pilot.pause()
         unfocused = list(lst.render_line(0))[0].style
         assert focused != unfocused
+
+
+def test_the_inline_interval_is_drawn_on_one_log_axis():
+    """The picture's cells against an independent mapping: column = middle + ln(x) / span
+    × middle (numpy's log), 1 at the middle, the point inside its interval, bounds past the
+    axis marked."""
+    import math
+
+    import numpy as np
+
+    from foldsift.tui.widgets.comparison_list import interval_cells
+
+    span, width = math.log(4.0), 11
+    middle = width // 2
+    for ratio, low, high in [(0.5, 0.3, 0.9), (2.0, 1.2, 3.5), (1.1, 0.8, 1.6), (50, 2, 900)]:
+        cells = interval_cells({"ratio": ratio, "ci_low": low, "ci_high": high}, width, span)
+        assert len(cells) == width
+
+        def column(x: float) -> int:
+            return round(middle + float(np.log(x)) / span * middle)
+
+        if 0 <= column(ratio) < width:
+            assert cells[column(ratio)] == "●"
+        else:
+            assert "●" not in cells and cells[-1] == "▶"
+        assert cells[middle] in "│┼●"
+        if low < 1 < high:
+            assert cells[middle] in "┼●"
+        drawn = [i for i, c in enumerate(cells) if c in "─┼●◀▶"]
+        assert min(drawn) == max(column(low), 0) and max(drawn) == min(column(high), width - 1)
+    blank = interval_cells({"ratio": None, "ci_low": None, "ci_high": None}, width, span)
+    assert blank.strip() == "│"

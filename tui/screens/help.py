@@ -51,6 +51,12 @@ LIST_COLUMNS: tuple[tuple[str, str], ...] = (
     ),
     ("ratio", "geometric mean of b ÷ geometric mean of a (always)"),
     ("CI", "its confidence interval (always)"),
+    (
+        "1 on axis",
+        "the CI drawn on one log axis shared by the shown rows: │ is ratio 1, ● the ratio, "
+        "─ the interval, ◀ ▶ past the edge (the axis reaches the 95th percentile of the rows' "
+        "farthest bounds)",
+    ),
     ("q", "Benjamini-Hochberg adjusted p across the family (always)"),
     ("warn", "!N: the comparison carries N warnings; the detail explains each (always)"),
     ("decision", "keep, doubt or drop, as you decided (always)"),

@@ -6,6 +6,7 @@ and draws rows on demand, so 50,000 rows cost no more to show than 50.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -48,6 +49,56 @@ def _warnings(row: ReviewedRow) -> str:
     return f"!{row['warning_count']}" if row["warning_count"] else ""
 
 
+INTERVAL = "1 on axis"
+#: The half-width of the picture's log axis: the 95th percentile of the rows' farthest CI
+#: bound from 1, within these limits (2-fold to 10,000-fold).
+SPAN_LIMITS = (math.log(2.0), math.log(1e4))
+
+
+def axis_span(frame: pl.DataFrame) -> float:
+    """How far from ratio 1, on the log scale, the pictures of these rows reach."""
+    if not frame.height or col.CI_LOW not in frame.columns:
+        return SPAN_LIMITS[0]
+    reach = frame.select(
+        pl.max_horizontal(pl.col(col.CI_LOW).log().abs(), pl.col(col.CI_HIGH).log().abs())
+        .fill_nan(None)
+        .quantile(0.95)
+    ).item()
+    if reach is None or not math.isfinite(reach):
+        return SPAN_LIMITS[0]
+    return min(max(float(reach), SPAN_LIMITS[0]), SPAN_LIMITS[1])
+
+
+def interval_cells(row: ReviewedRow, width: int, span: float) -> str:
+    """The row's CI as a bar on a log axis from exp(-span) to exp(span): ``│`` at 1, ``─``
+    for the interval, ``●`` at the ratio, ``◀``/``▶`` where it runs past the edge."""
+    cells = [" "] * width
+    middle = width // 2
+    cells[middle] = "│"
+    ratio, low, high = row["ratio"], row["ci_low"], row["ci_high"]
+    if ratio is None or ratio <= 0:
+        return "".join(cells)
+
+    def at(value: float | None, default: int) -> int:
+        if value is None or value <= 0 or not math.isfinite(value):
+            return default
+        return round(middle + math.log(value) / span * middle)
+
+    first, last = at(low, -1), at(high, width)
+    for i in range(max(first, 0), min(last, width - 1) + 1):
+        cells[i] = "─"
+    if cells[middle] == "─":
+        cells[middle] = "┼"  # the interval reaches ratio 1
+    if first < 0:
+        cells[0] = "◀"
+    if last > width - 1:
+        cells[-1] = "▶"
+    point = at(ratio, middle)
+    if 0 <= point < width:
+        cells[point] = "●"
+    return "".join(cells)
+
+
 def _ratio(row: ReviewedRow) -> str:
     """The ratio, as a fold when its CI is written as folds (one rule in one row)."""
     return ratio_text(row["ratio"], any_fold(row["ratio"], row["ci_low"], row["ci_high"]))
@@ -73,6 +124,8 @@ COLUMNS: tuple[Column, ...] = (
     Column("level b ÷ level a", 14, col.LEVEL_B, _levels),
     Column("ratio", 7, col.RATIO, _ratio, right=True),
     Column("CI", 12, col.CI_LOW, lambda r: interval_text(r["ci_low"], r["ci_high"])),
+    # A picture of the CI on one log axis shared by every row (``interval_cells``).
+    Column(INTERVAL, 11, col.CI_FOLD, lambda r: ""),
     Column("q", 7, col.Q_BH, lambda r: p_text(r["q_bh"]), right=True),
     Column("p", 7, col.P_VALUE, lambda r: p_text(r["p_value"]), right=True),
     Column("warn", 4, col.WARNING_COUNT, _warnings, right=True),
@@ -87,7 +140,7 @@ COLUMNS: tuple[Column, ...] = (
 )
 REQUIRED = ("⚑", "outcome", "level b ÷ level a", "ratio", "CI", "q", "warn", "decision", "✎")
 #: The other columns, most useful first: added while the terminal has room for them.
-OPTIONAL = ("n b/a", "p", "grouping", "change", "class", "method")
+OPTIONAL = (INTERVAL, "n b/a", "p", "grouping", "change", "class", "method")
 #: The widest the name columns grow (longer names are cut with "…").
 NAME_LIMIT = 40
 
@@ -157,6 +210,13 @@ def _cell(text: str, column: Column) -> str:
         text = set_cell_size(text, column.width - 1) + "…"
     padding = " " * (column.width - cell_len(text))
     return padding + text if column.right else text + padding
+
+
+def _picture(width: int, span: float) -> Callable[[ReviewedRow], str]:
+    def render(row: ReviewedRow) -> str:
+        return interval_cells(row, width, span)
+
+    return render
 
 
 def _natural_widths(frame: pl.DataFrame) -> dict[str, int]:
@@ -242,7 +302,13 @@ class ComparisonList(ScrollView, can_focus=True):
     def _lay_out(self) -> None:
         # The content's width: the vertical scroll bar takes its cells from the widget's.
         width = self.size.width - self.styles.scrollbar_size_vertical
-        self._columns = layout(max(width, 40), self._natural, self.sort_on)
+        span = axis_span(self._frame)
+        self._columns = tuple(
+            Column(c.title, c.width, c.sort_on, _picture(c.width, span), c.right)
+            if c.title == INTERVAL
+            else c
+            for c in layout(max(width, 40), self._natural, self.sort_on)
+        )
         self._line_cache.clear()
         self.virtual_size = Size(self._total_width, self._frame.height + 1)
 
