@@ -12,9 +12,10 @@ import math
 import numpy as np
 from scipy import stats as sps
 
+from .defaults import DEFAULT_BAND, check_band, parse_band
 from .vocabulary import BandClass
 
-DEFAULT_BAND = (0.80, 1.25)
+__all__ = ["BAND_CLASSES", "DEFAULT_BAND", "band_class", "check_band", "parse_band", "tost"]
 
 #: Class names, in the order the app lists them, each with its plain meaning.
 BAND_CLASSES: dict[BandClass, str] = {
@@ -23,30 +24,6 @@ BAND_CLASSES: dict[BandClass, str] = {
     "equivalent": "the 90% CI lies inside the band and the CI includes 1: equivalent",
     "inconclusive": "the CI includes 1 and the 90% CI reaches outside the band: more data needed",
 }
-
-
-def parse_band(text: str) -> tuple[float, float]:
-    """Parse ``LOW,HIGH``; raise ValueError with a clear message if it is not a valid band."""
-    parts = [part.strip() for part in text.split(",")]
-    if len(parts) != 2:
-        raise ValueError(f"band {text!r}: write it as LOW,HIGH, for example 0.80,1.25")
-    try:
-        low, high = float(parts[0]), float(parts[1])
-    except ValueError:
-        raise ValueError(
-            f"band {text!r}: LOW and HIGH must be numbers, for example 0.80,1.25"
-        ) from None
-    check_band(low, high)
-    return low, high
-
-
-def check_band(low: float, high: float) -> None:
-    if not (math.isfinite(low) and math.isfinite(high)) or low <= 0 or high <= 0:
-        raise ValueError(f"band {low},{high}: both bounds must be positive ratios")
-    if low >= high:
-        raise ValueError(f"band {low},{high}: LOW must be below HIGH")
-    if not low < 1 < high:
-        raise ValueError(f"band {low},{high}: the band must contain 1 (no change)")
 
 
 def tost(

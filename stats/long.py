@@ -40,15 +40,13 @@ from __future__ import annotations
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal, get_args
+from typing import Literal
 
 import polars as pl
 
+from .defaults import DUPLICATE_POLICIES, Duplicates
 from .entries import ABOVE, CENSORED, ESTIMATED, MISSING, NO_LIMIT, NUMBER, read_columns
 from .errors import InputError
-
-Duplicates = Literal["mean-log", "first", "refuse"]
-DUPLICATE_POLICIES: tuple[Duplicates, ...] = get_args(Duplicates)
 
 #: Column names (compared without case, spaces or punctuation) that mark each role: common
 #: laboratory-export headers, the Water Quality Exchange result columns of public

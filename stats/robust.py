@@ -38,14 +38,14 @@ from scipy import stats as sps
 from scipy.special import gammaln
 
 from .columns import CROSS_CHECK_SCHEMA, ComparisonRow, Side, comparison_row
+from .defaults import DEFAULT_RESAMPLES as DEFAULT_RESAMPLES
+from .defaults import DEFAULT_SEED as DEFAULT_SEED
 from .peto import peto_prentice
 from .values import GroupId
 
 if TYPE_CHECKING:
     from .scan import ScanResult
 
-DEFAULT_RESAMPLES = 2000
-DEFAULT_SEED = 20261201
 _BRUTE_FORCE_PAIRS = 4_000_000
 
 FloatArray = npt.NDArray[np.float64]

@@ -17,6 +17,7 @@ from . import diagnostics, equivalence, precision
 from .censored import CensoredComparison
 from .censored_groups import SUMMARY_EXTRA, GroupEntries, merge_censored
 from .columns import COMPARISON_SCHEMA, key_expression, side
+from .defaults import DEFAULT_MAX_COMPARISONS, Reference
 from .design import DESIGN_SCHEMA, crossover_rows, paired_rows
 from .load import InputError, Table
 from .multiplicity import adjust
@@ -41,37 +42,6 @@ Array = npt.NDArray[np.float64]
 
 #: The columns that name a set of levels compared with each other.
 _SET = ["grouping", "within", "stratum"]
-#: The default limit on the comparisons of one scan (each is a row the review lists; 200,000
-#: rows take a few hundred MB and well under a minute on a small machine).
-DEFAULT_MAX_COMPARISONS = 200_000
-
-
-@dataclass(frozen=True)
-class Reference:
-    """A reference level (denominator) as the user wrote it: ``LEVEL`` (for every grouping
-    that has that level) or ``GROUPING=LEVEL``. Names may themselves hold ``=``: every
-    reading is tried against the groupings and levels of the data, and a text that fits
-    more than one is refused as ambiguous."""
-
-    text: str
-
-    @classmethod
-    def parse(cls, text: str) -> Reference:
-        if not text or text.startswith("=") or text.endswith("="):
-            raise ValueError(f"reference {text!r}: write LEVEL or GROUPING=LEVEL")
-        return cls(text)
-
-    @classmethod
-    def of(cls, level: str, grouping: str | None = None) -> Reference:
-        return cls(level if grouping is None else f"{grouping}={level}")
-
-    def readings(self) -> list[tuple[str | None, str]]:
-        """(grouping or None, level) for the whole text and each ``=`` it holds."""
-        splits = [i for i, char in enumerate(self.text) if char == "="]
-        return [(None, self.text)] + [(self.text[:i], self.text[i + 1 :]) for i in splits]
-
-    def __str__(self) -> str:
-        return self.text
 
 
 @dataclass(frozen=True)

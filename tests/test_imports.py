@@ -177,3 +177,31 @@ def test_a_scan_writes_no_file_and_opens_no_database(tmp_path):
     assert done.returncode == 0, done.stderr
     assert done.stdout.splitlines() == ["writes: []", "False"], done.stdout
     assert sorted(p.name for p in tmp_path.iterdir()) == ["t.csv"]
+
+
+HELP_PROBE = """
+import sys
+from foldsift.tui import cli
+for words in (["--help"], ["scan", "--help"], ["review", "--help"], ["export", "--help"]):
+    try:
+        cli.main(words)
+    except SystemExit:
+        pass
+heavy = sorted(
+    m for m in sys.modules
+    if m.split(".")[0] in {"numpy", "polars", "scipy", "textual", "pint", "pandas"}
+)
+print("heavy modules:", heavy[:5])
+assert not heavy, heavy
+"""
+
+
+def test_help_imports_nothing_heavy():
+    """`foldsift --help` and each command's help load none of numpy, polars, scipy, pint,
+    pandas or Textual (the project's start-up rule: import only what a command needs; the
+    time this saves is measured in tests/bench_scale.py, not here)."""
+    done = subprocess.run(
+        [sys.executable, "-c", HELP_PROBE], capture_output=True, text=True, timeout=120
+    )
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert "usage: foldsift" in done.stdout

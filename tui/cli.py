@@ -9,13 +9,19 @@ import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-from foldsift.stats.equivalence import DEFAULT_BAND, parse_band
-from foldsift.stats.load import InputError, ReadOptions
-from foldsift.stats.long import DUPLICATE_POLICIES, LongOptions
-from foldsift.stats.policy import ValuePolicy
-from foldsift.stats.robust import DEFAULT_RESAMPLES
-from foldsift.stats.scan import DEFAULT_MAX_COMPARISONS, Reference, ScanResult, ScanSettings
+# Only light modules here: the heavy ones (polars, scipy, Textual) are imported by the
+# command that needs them, so `foldsift --help` starts at once.
+from foldsift.stats.defaults import (
+    DEFAULT_BAND,
+    DEFAULT_MAX_COMPARISONS,
+    DEFAULT_RESAMPLES,
+    DUPLICATE_POLICIES,
+    Reference,
+    parse_band,
+)
+from foldsift.stats.errors import InputError
 from foldsift.stats.vocabulary import (
     CENSORED_POLICIES,
     FAMILIES,
@@ -24,8 +30,14 @@ from foldsift.stats.vocabulary import (
     TESTS,
 )
 
-from .export import COLUMN_SETS, DEFAULT_DIGITS, MAX_DIGITS, ExportForm
-from .session import SELECTIONS, ReviewSession, Selection, SessionOptions, scan
+from .choices import COLUMN_SETS, DEFAULT_DIGITS, MAX_DIGITS, SELECTIONS, Selection
+
+if TYPE_CHECKING:
+    from foldsift.stats.long import LongOptions
+    from foldsift.stats.scan import ScanResult, ScanSettings
+
+    from .export import ExportForm
+    from .session import SessionOptions
 
 EXIT_BAD_INPUT = 2
 
@@ -149,6 +161,8 @@ def _add_long_options(long: argparse._ArgumentGroup) -> None:
 
 
 def _long_options(args: argparse.Namespace) -> LongOptions:
+    from foldsift.stats.long import LongOptions
+
     try:
         return LongOptions(
             analyte=args.analyte,
@@ -244,6 +258,9 @@ def _add_design_options(method: argparse._ArgumentGroup) -> None:
 
 
 def settings_from(args: argparse.Namespace) -> ScanSettings:
+    from foldsift.stats.policy import ValuePolicy
+    from foldsift.stats.scan import ScanSettings
+
     return ScanSettings(
         # Naming a reference level asks for comparisons against it.
         pairs=args.pairs or ("reference" if args.reference else "all"),
@@ -274,6 +291,10 @@ def data_path(args: argparse.Namespace) -> Path:
 
 def options_from(args: argparse.Namespace) -> SessionOptions:
     """The typed options of a session from the parsed command line."""
+    from foldsift.stats.load import ReadOptions
+
+    from .session import SessionOptions
+
     return SessionOptions(
         data_path=data_path(args),
         settings=settings_from(args),
@@ -390,6 +411,7 @@ def command_scan(args: argparse.Namespace) -> int:
     from foldsift.stats.sentence import sentence_column
 
     from .export import csv_text, write_export
+    from .session import scan
 
     _check_out(args.out, args)
     options = options_from(args)
@@ -458,6 +480,8 @@ def _export_selection(args: argparse.Namespace) -> Selection:
 
 def _export_form(args: argparse.Namespace) -> ExportForm:
     """The form of the CSV: ``--columns``, ``--digits`` (short form only), ``--bom``."""
+    from .export import ExportForm
+
     if args.columns == "full" and args.digits is not None:
         raise InputError("--digits rounds the short export; --columns full keeps full precision")
     digits = DEFAULT_DIGITS if args.digits is None else args.digits
@@ -465,6 +489,8 @@ def _export_form(args: argparse.Namespace) -> ExportForm:
 
 
 def command_export(args: argparse.Namespace) -> int:
+    from .session import ReviewSession
+
     form = _export_form(args)
     _check_out(args.out, args)
     options = options_from(args)

@@ -41,13 +41,17 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from decimal import Decimal
 from pathlib import Path
-from typing import Any, BinaryIO, Literal, get_args
+from typing import Any, BinaryIO
 
 import polars as pl
 
 from foldsift.stats import columns as col
 from foldsift.stats.columns import csv_ready
 from foldsift.stats.formatting import readable_outcome
+from foldsift.tui.choices import COLUMN_SETS as COLUMN_SETS
+from foldsift.tui.choices import DEFAULT_DIGITS as DEFAULT_DIGITS
+from foldsift.tui.choices import MAX_DIGITS as MAX_DIGITS
+from foldsift.tui.choices import ColumnSet as ColumnSet
 
 __all__ = [
     "COLUMN_SETS",
@@ -133,12 +137,6 @@ def select_rows(joined: pl.DataFrame, which: str = "flagged") -> pl.DataFrame:
 
 # -- the two forms of an export -------------------------------------------------------------
 
-#: Which columns an export writes: the short set a colleague reads, or every column.
-ColumnSet = Literal["short", "full"]
-COLUMN_SETS: tuple[ColumnSet, ...] = get_args(ColumnSet)
-DEFAULT_DIGITS = 4
-#: 17 significant digits write every float64 exactly (IEEE 754-2008, 5.12.2).
-MAX_DIGITS = 17
 #: How a note is put on one line in the short export (said in the sidecar and the README).
 NOTE_ESCAPES = {"\\": "\\\\", "\n": "\\n", "\r": "\\r"}
 NOTE_ESCAPING = (

@@ -11,7 +11,7 @@ from collections.abc import Callable, Sequence
 from contextlib import suppress
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Literal, get_args
+from typing import Any
 
 import numpy as np
 import polars as pl
@@ -41,6 +41,8 @@ from foldsift.stats.scan import ScanResult, ScanSettings, run_scan
 from foldsift.stats.sentence import readable_outcome, sentence_column
 from foldsift.stats.vocabulary import Decision
 
+from .choices import SELECTIONS as SELECTIONS
+from .choices import Selection as Selection
 from .export import DEFAULT_FORM, ExportForm, join_reviews, short_export, write_export
 from .filtering import FilterError, parse_filter, searchable_names
 from .store import (
@@ -51,11 +53,6 @@ from .store import (
     ReviewStoreError,
     default_review_path,
 )
-
-#: Which rows an export writes: flagged ones, ones with a decision, the ones the filter
-#: shows, or all of them.
-Selection = Literal["flagged", "decided", "shown", "all"]
-SELECTIONS: tuple[Selection, ...] = get_args(Selection)
 
 #: The list's order when it opens, and the order of every export: smallest q first.
 DEFAULT_SORT = col.Q_BH
