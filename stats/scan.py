@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -292,16 +292,33 @@ def _level_sets(table: Table, specs: list[GroupSpec]) -> pl.DataFrame:
     )
 
 
-def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
-    """Compute every comparison of the table under the settings."""
+#: Told what a scan is doing, stage by stage (the command line and the app show it).
+Progress = Callable[[str], None]
+
+
+def _silent(stage: str) -> None:
+    del stage
+
+
+def run_scan(
+    table: Table, settings: ScanSettings | None = None, progress: Progress | None = None
+) -> ScanResult:
+    """Compute every comparison of the table under the settings; ``progress`` hears each
+    stage as it starts."""
     settings = settings or ScanSettings()
+    say = progress or _silent
     check_within(table, settings.within)
     specs: list[GroupSpec] = group_specs(table.groupings, settings.within)
     check_comparison_count(_level_sets(table, specs), len(table.outcomes), settings, table.name)
+    say(
+        f"summarising {table.frame.height:,} rows x {len(table.outcomes)} outcomes by "
+        f"{len(specs)} grouping(s)"
+    )
     used = apply_policy(table.frame, table.outcomes, settings.policy, table.names)
     values = GroupValues(used, specs, table.outcomes, table.names)
     entries = GroupEntries(used, specs, table.outcomes, table.names, settings.policy)
     summaries = group_summaries(used, specs, table.outcomes, table.names)
+    say(f"checking the logs of {summaries.height:,} groups")
     normality = diagnostics.group_normality(values)
     summaries = summaries.join(
         normality,
@@ -309,8 +326,11 @@ def run_scan(table: Table, settings: ScanSettings | None = None) -> ScanResult:
         how="left",
         nulls_equal=True,
     )
+    if entries.outcomes:
+        say(f"fitting the below-detection entries of {len(entries.outcomes)} outcome(s)")
     summaries = merge_censored(summaries, entries.figures(), settings.policy)
     completed = complete_summaries(summaries)
+    say(f"comparing the levels of {completed.height:,} groups")
     comparisons = compare_summaries(
         completed,
         settings,

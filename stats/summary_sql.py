@@ -43,14 +43,13 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Literal, get_args
-
 import polars as pl
 
 from .entries import MISSING_WORDS, ColumnReading
 from .errors import InputError
 from .load import ReadOptions, load_table, read_raw
 from .long import LongOptions
+from .vocabulary import SQL_DIALECTS, SqlDialect
 
 __all__ = [
     "DIALECTS",
@@ -64,8 +63,8 @@ __all__ = [
     "summary_query",
 ]
 
-Dialect = Literal["duckdb", "spark", "postgres"]
-DIALECTS: tuple[Dialect, ...] = get_args(Dialect)
+Dialect = SqlDialect
+DIALECTS = SQL_DIALECTS
 
 #: The columns of the summary table the query returns, in order (``median`` optional).
 QUERY_COLUMNS = (
@@ -110,7 +109,7 @@ _WORDS: dict[Dialect, _Words] = {
 def _words(dialect: str) -> _Words:
     if dialect not in _WORDS:
         raise ValueError(f"unknown SQL dialect {dialect!r}; choose {', '.join(DIALECTS)}")
-    return _WORDS[dialect]  # type: ignore[index]
+    return _WORDS[dialect]
 
 
 def quote_name(name: str, dialect: Dialect) -> str:
@@ -151,6 +150,7 @@ def source_for(path: str | Path, dialect: Dialect) -> Source:
     ``read_parquet('...')`` (a folder: every Parquet file below it) or, for text files,
     ``read_csv('...', all_varchar = true)`` (groupings keep their text, as foldsift reads
     them); Spark ``parquet.`...```. PostgreSQL reads tables only (give a table name)."""
+    _words(dialect)
     text = str(path)
     is_text = text.lower().endswith(_TEXT_SUFFIXES)
     if dialect == "duckdb":
@@ -166,14 +166,15 @@ def source_for(path: str | Path, dialect: Dialect) -> Source:
             f"{text}: Spark reads a CSV file only with options (header, types); make it a "
             "table or view on the cluster and give its name with --table"
         )
-    _words(dialect)
     raise InputError(f"{text}: PostgreSQL reads tables, not files; give the table with --table")
 
 
 def _value(outcome: str, words: _Words, dialect: Dialect) -> str:
     """The outcome as a double, null where it is NaN or infinite (missing to the raw scan)."""
     cast = f"CAST({quote_name(outcome, dialect)} AS {words.double})"
-    special = ", ".join(f"CAST('{word}' AS {words.double})" for word in ("NaN", "Infinity", "-Infinity"))
+    special = ", ".join(
+        f"CAST('{word}' AS {words.double})" for word in ("NaN", "Infinity", "-Infinity")
+    )
     return f"CASE WHEN {cast} NOT IN ({special}) THEN {cast} END"
 
 
@@ -387,16 +388,22 @@ _SPREADS = ("sd_log", "var_log", "ss_log")
 _COUNTS = ("n_missing", "n_excluded", "n_substituted", "n_censored")
 
 
-def _sum_of_squares(parts: pl.DataFrame, label: str) -> pl.Expr:
-    """Each row's sum of squared deviations of the logs, from its spread column."""
-    spreads = [name for name in _SPREADS if name in parts.columns]
-    missing = [name for name in ("grouping", "level", "outcome", "n", "mean_log") if name not in parts.columns]
+def _spread_name(frame: pl.DataFrame, label: str) -> str:
+    """The spread column of a summary frame; an InputError naming what is missing otherwise."""
+    spreads = [name for name in _SPREADS if name in frame.columns]
+    missing = [name for name in (*_KEYS, "n", "mean_log") if name not in frame.columns]
     if missing or not spreads:
         need = ", ".join(missing + ([] if spreads else ["sd_log or var_log or ss_log"]))
         raise InputError(f"{label}: a summary table needs the columns {need}")
-    n, spread = pl.col("n"), pl.col(spreads[0])
-    ss = {"sd_log": spread.pow(2) * (n - 1), "var_log": spread * (n - 1), "ss_log": spread}
-    return pl.when(n < 2).then(0.0).otherwise(ss[spreads[0]])
+    return spreads[0]
+
+
+def _sum_of_squares(spread: str) -> pl.Expr:
+    """Each row's sum of squared deviations of the logs, from its spread column (0 for a
+    group of fewer than 2 values)."""
+    n, value = pl.col("n"), pl.col(spread)
+    ss = {"sd_log": value.pow(2) * (n - 1), "var_log": value * (n - 1), "ss_log": value}
+    return pl.when(n < 2).then(0.0).otherwise(ss[spread])
 
 
 def _check_parts(parts: pl.DataFrame, ss: pl.Expr, label: str) -> None:
@@ -431,7 +438,7 @@ def merge_summaries(parts: pl.DataFrame, label: str = "summary parts") -> pl.Dat
     Medians cannot be merged from medians: ``median`` is null. ``parts`` counts the rows
     merged into each group. Takes ``sd_log``, ``var_log`` or ``ss_log`` (one per frame;
     :func:`read_summary_parts` brings files with different ones to ``ss_log``)."""
-    ss = _sum_of_squares(parts, label)
+    ss = _sum_of_squares(_spread_name(parts, label))
     typed = parts.with_columns(pl.col("n").cast(pl.Float64), pl.col("mean_log").cast(pl.Float64))
     _check_parts(typed, ss, label)
     counts = [name for name in _COUNTS if name in typed.columns]
@@ -466,20 +473,19 @@ def _typed_part(raw: pl.DataFrame, label: str) -> pl.DataFrame:
     """One part file's names trimmed and lower-cased, keys as text, figures as numbers, the
     spread as ``ss_log``; refuses entries that are not numbers."""
     raw = raw.rename({name: name.strip().lower() for name in raw.columns})
-    ss = _sum_of_squares(raw, label)
-    numbers = [name for name in ("n", "mean_log", *_SPREADS, *_COUNTS) if name in raw.columns]
+    spread = _spread_name(raw, label)
+    numbers = [name for name in ("n", "mean_log", spread, *_COUNTS) if name in raw.columns]
+    text = {name: pl.col(name).cast(pl.Utf8).str.strip_chars() for name in numbers}
     typed = raw.select(
         *[pl.col(name).cast(pl.Utf8).str.strip_chars() for name in _KEYS],
-        *[
-            pl.col(name).cast(pl.Utf8).str.strip_chars().cast(pl.Float64, strict=False)
-            for name in numbers
-        ],
+        *[text[name].cast(pl.Float64, strict=False) for name in numbers],
     )
     for name in numbers:
-        bad = typed.filter(pl.col(name).is_null() & raw[name].is_not_null() & (raw[name].cast(pl.Utf8).str.strip_chars() != ""))
-        if bad.height:
-            raise InputError(f"{label}: column {name!r} has {bad.height} entries that are not numbers")
-    return typed.with_columns(ss.alias("ss_log")).drop(
+        given = raw.select((text[name].is_not_null() & (text[name] != "")).alias("given"))
+        bad = typed.filter(pl.col(name).is_null() & given["given"]).height
+        if bad:
+            raise InputError(f"{label}: column {name!r} has {bad} entries that are not numbers")
+    return typed.with_columns(_sum_of_squares(spread).alias("ss_log")).drop(
         [name for name in ("sd_log", "var_log") if name in typed.columns]
     )
 
@@ -493,7 +499,9 @@ def read_summary_parts(paths: Sequence[Path | str]) -> pl.DataFrame:
     for given in map(Path, paths):
         resolved = given.resolve()
         if resolved in seen:
-            raise InputError(f"{given}: given twice (as {seen[resolved]}); its rows would count twice")
+            raise InputError(
+                f"{given}: given twice (as {seen[resolved]}); its rows would count twice"
+            )
         seen[resolved] = given
         frames.append(_typed_part(read_raw(given), str(given)))
     if not frames:

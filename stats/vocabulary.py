@@ -21,6 +21,8 @@ NonpositivePolicy = Literal["exclude", "half-min"]
 #: Entries like ``<0.5``: fit them by censored maximum likelihood (the default), leave them
 #: out, or put DL/2 or DL/sqrt(2) instead.
 CensoredPolicy = Literal["mle", "exclude", "half-dl", "dl-root2"]
+#: The SQL dialect of ``foldsift summary-sql`` (``summary_sql.summary_query``).
+SqlDialect = Literal["duckdb", "spark", "postgres"]
 #: How a comparison's numbers were computed (the ``method`` column).
 Method = Literal[
     "t-test on logs",
@@ -66,6 +68,7 @@ TESTS: tuple[Test, ...] = get_args(Test)
 FAMILIES: tuple[Family, ...] = get_args(Family)
 NONPOSITIVE_POLICIES: tuple[NonpositivePolicy, ...] = get_args(NonpositivePolicy)
 CENSORED_POLICIES: tuple[CensoredPolicy, ...] = get_args(CensoredPolicy)
+SQL_DIALECTS: tuple[SqlDialect, ...] = get_args(SqlDialect)
 METHODS: tuple[Method, ...] = get_args(Method)
 DECISIONS: tuple[Decision, ...] = get_args(Decision)
 BAND_CLASS_NAMES: tuple[BandClass, ...] = get_args(BandClass)

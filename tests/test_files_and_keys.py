@@ -288,5 +288,13 @@ def test_a_slow_read_reports_progress_on_stderr(tmp_path, capsys, monkeypatch):
     assert main(["scan", str(fifo), "--out", str(tmp_path / "s.csv")]) == 0
     writer.join(timeout=20)
     err = capsys.readouterr().err
-    assert "foldsift: still reading and scanning slow.csv" in err
+    # The line says the stage the scan is in: here still reading the file.
+    assert "foldsift: still reading slow.csv" in err
     assert pl.read_csv(tmp_path / "s.csv").height == 1
+    # --quiet: the same slow read says nothing while it runs.
+    writer = threading.Thread(target=feed, daemon=True)
+    writer.start()
+    assert main(["scan", str(fifo), "--quiet", "--out", str(tmp_path / "t.csv")]) == 0
+    writer.join(timeout=20)
+    assert "still" not in capsys.readouterr().err
+    assert pl.read_csv(tmp_path / "t.csv").height == 1

@@ -101,13 +101,22 @@ class FoldsiftApp(App[int]):
     def _scan(self) -> None:
         """Runs in the scan thread; the result goes back as a message."""
         try:
-            message = ScanFinished(scan(self.options), None)
+            message = ScanFinished(scan(self.options, self._stage), None)
         except (InputError, ValueError) as error:
             message = ScanFinished(None, str(error))
         except Exception as error:  # a thread's failure must reach the screen, in one line
             message = ScanFinished(None, f"unexpected {type(error).__name__}: {error}")
         with suppress(RuntimeError):  # the app has ended meanwhile (its loop is closed)
             self.post_message(message)
+
+    def _stage(self, what: str) -> None:
+        """Runs in the scan thread: the busy notice says what the scan is doing."""
+        with suppress(RuntimeError):  # the app has ended meanwhile
+            self.call_from_thread(self._show_stage, what)
+
+    def _show_stage(self, what: str) -> None:
+        if self.scanning:
+            self.query_one(StatusLine).notice = Notice(f"{what} …")
 
     @on(ScanFinished)
     def _scan_finished(self, message: ScanFinished) -> None:

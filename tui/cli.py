@@ -313,18 +313,35 @@ def options_from(args: argparse.Namespace) -> SessionOptions:
 PROGRESS_AFTER = 2.0
 
 
+class Stage:
+    """What a long run is doing now, as the scan says it (``scan(options, stage.set)``)."""
+
+    def __init__(self, what: str) -> None:
+        self.what = what
+
+    def set(self, what: str) -> None:
+        self.what = what
+
+
+#: ``--quiet``: no progress lines (set by ``main``).
+QUIET = threading.Event()
+
+
 @contextmanager
-def _progress(what: str, every: float | None = None) -> Iterator[None]:
-    """Say on stderr, every few seconds, that ``what`` is still going (silent when it ends
-    sooner, so quick runs print nothing more)."""
+def _progress(what: str, every: float | None = None) -> Iterator[Stage]:
+    """Say on stderr, every few seconds, what a run is doing (its stage, as the scan reports
+    it); silent when it ends sooner, so quick runs print nothing more, and with --quiet."""
     done = threading.Event()
     start = time.monotonic()
     pause = PROGRESS_AFTER if every is None else every
+    stage = Stage(what)
 
     def report() -> None:
         while not done.wait(pause):
+            if QUIET.is_set():
+                continue
             print(
-                f"foldsift: still {what} ({time.monotonic() - start:.0f} s)",
+                f"foldsift: still {stage.what} ({time.monotonic() - start:.0f} s)",
                 file=sys.stderr,
                 flush=True,
             )
@@ -332,7 +349,7 @@ def _progress(what: str, every: float | None = None) -> Iterator[None]:
     reporter = threading.Thread(target=report, daemon=True)
     reporter.start()
     try:
-        yield
+        yield stage
     finally:
         done.set()
         reporter.join()
@@ -417,8 +434,8 @@ def command_scan(args: argparse.Namespace) -> int:
     options = options_from(args)
     if args.robust and options.summary:
         return _fail(f"{args.data}: --robust needs raw values; a summary table has none")
-    with _progress(f"reading and scanning {options.data_path.name}"):
-        result = scan(options)
+    with _progress(f"reading and scanning {options.data_path.name}") as stage:
+        result = scan(options, stage.set)
     _describe(result)
     comparisons = result.comparisons
     if args.robust:
@@ -500,8 +517,8 @@ def command_export(args: argparse.Namespace) -> int:
             f"{options.review_file}: no review file yet, so nothing is {which}; review the data "
             "first, give --reviews PATH, or export --rows all"
         )
-    with _progress(f"reading and scanning {options.data_path.name}"):
-        session = ReviewSession.open_to_read(options)
+    with _progress(f"reading and scanning {options.data_path.name}") as stage:
+        session = ReviewSession.open_to_read(options, stage.set)
     try:
         error = session.set_filter(args.filter or "")
         if error:
@@ -553,8 +570,17 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _add_quiet(command: argparse.ArgumentParser) -> None:
+    command.add_argument(
+        "--quiet",
+        action="store_true",
+        help="no progress lines on stderr (a long run says what it is doing every 2 s)",
+    )
+
+
 def _add_scan_command(scan: argparse.ArgumentParser) -> None:
     add_scan_options(scan)
+    _add_quiet(scan)
     scan.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
     _add_formula_option(scan)
     scan.add_argument("--out", type=Path, metavar="FILE.csv", help="write here instead of stdout")
@@ -591,6 +617,7 @@ def _add_review_command(review: argparse.ArgumentParser) -> None:
 
 
 def _add_export_command(export: argparse.ArgumentParser) -> None:
+    _add_quiet(export)
     add_scan_options(export, data_required=False)
     export.add_argument(
         "--reviews", type=Path, metavar="PATH", help="review file (default: beside the data)"
@@ -668,6 +695,10 @@ def _add_formula_option(parser: argparse.ArgumentParser) -> None:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    if getattr(args, "quiet", False):
+        QUIET.set()
+    else:
+        QUIET.clear()
     handlers = {"scan": command_scan, "review": command_review, "export": command_export}
     try:
         return handlers[args.command](args)

@@ -79,8 +79,11 @@ class SessionOptions:
         return self.reviews_path or default_review_path(self.data_path)
 
 
-def scan(options: SessionOptions) -> ScanResult:
-    """Load the data and compute every comparison (a raw table or a summary table)."""
+def scan(options: SessionOptions, progress: Callable[[str], None] | None = None) -> ScanResult:
+    """Load the data and compute every comparison (a raw table or a summary table);
+    ``progress`` hears each stage as it starts."""
+    say = progress or (lambda stage: None)
+    say(f"reading {options.data_path.name}")
     if options.summary:
         from foldsift.stats.summary_input import scan_summary_table
 
@@ -99,7 +102,7 @@ def scan(options: SessionOptions) -> ScanResult:
         long=options.long,
         design=design,
     )
-    return run_scan(table, options.settings)
+    return run_scan(table, options.settings, say)
 
 
 @dataclass(frozen=True)
@@ -267,10 +270,12 @@ class ReviewSession:
         return cls(options, result, store)
 
     @classmethod
-    def open_to_read(cls, options: SessionOptions) -> ReviewSession:
+    def open_to_read(
+        cls, options: SessionOptions, progress: Callable[[str], None] | None = None
+    ) -> ReviewSession:
         """Scan the data and read its reviews without changing the review file: opened
         read-only, or none yet (every row then unreviewed)."""
-        result = scan(options)
+        result = scan(options, progress)
         path = options.review_file
         if path.exists():
             store = ReviewStore(path, result.source.fingerprint, read_only=True)
