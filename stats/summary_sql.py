@@ -30,9 +30,11 @@ groups with below-detection entries as the censored fit rows of a summary table
 (``n_censored`` > 0, README, ``--summary``).
 
 The query makes one pass over the data per grouping (a common table expression that
-aggregates every outcome at once, as the raw scan does), then one small SELECT per grouping
+aggregates every outcome at once, as the raw scan does; on PostgreSQL 200 outcomes at most
+per pass, as a SELECT there holds at most 1664 columns), then one small SELECT per grouping
 × outcome, joined by UNION ALL. DuckDB and PostgreSQL are asked to materialise each pass;
-Spark reuses the identical aggregation.
+on Spark, which would read the data again for each SELECT of a pass, the pass's columns
+become rows by one ``LATERAL VIEW STACK`` instead.
 
 :func:`merge_summaries` combines the summaries of separate partitions of one table into the
 summary of the whole.
@@ -40,15 +42,18 @@ summary of the whole.
 
 from __future__ import annotations
 
+import csv
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+
 import polars as pl
 
 from .entries import MISSING_WORDS, ColumnReading
 from .errors import InputError
 from .load import ReadOptions, load_table, read_raw
-from .long import LongOptions
+from .long import LongOptions, find_long_columns
+from .textfile import name_columns, sniff_separator
 from .vocabulary import SQL_DIALECTS, SqlDialect
 
 __all__ = [
@@ -58,9 +63,12 @@ __all__ = [
     "Source",
     "merge_summaries",
     "query_columns",
+    "quote_name",
     "read_summary_parts",
     "source_for",
+    "string_literal",
     "summary_query",
+    "table_reference",
 ]
 
 Dialect = SqlDialect
@@ -90,6 +98,13 @@ class _Words:
     materialized: str  # a CTE computed once
     backslash_escapes: bool  # string literals read \ as an escape
     median: str  # the exact median of {x}
+    #: At most this many outcomes in one pass (PostgreSQL allows 1664 columns in a SELECT;
+    #: each outcome takes 6 or 7); None: all in one.
+    outcomes_per_pass: int | None = None
+    #: Turn a pass's columns into rows with one LATERAL VIEW STACK (Spark, which would
+    #: otherwise read the data again for every outcome's SELECT of the pass) rather than
+    #: one SELECT per outcome from the materialised pass.
+    stack: bool = False
 
 
 _WORDS: dict[Dialect, _Words] = {
@@ -101,8 +116,9 @@ _WORDS: dict[Dialect, _Words] = {
         " MATERIALIZED",
         False,
         "PERCENTILE_CONT(0.5) WITHIN GROUP (ORDER BY {x})",
+        outcomes_per_pass=200,
     ),
-    "spark": _Words("`", "STRING", "DOUBLE", "", True, "PERCENTILE({x}, 0.5)"),
+    "spark": _Words("`", "STRING", "DOUBLE", "", True, "PERCENTILE({x}, 0.5)", stack=True),
 }
 
 
@@ -143,19 +159,26 @@ def table_reference(name: str, dialect: Dialect) -> str:
 
 
 _TEXT_SUFFIXES = (".csv", ".tsv", ".txt", ".csv.gz", ".tsv.gz")
+_CASES = (str.lower, str.upper, str.title)
 
 
 def source_for(path: str | Path, dialect: Dialect) -> Source:
     """The data file, folder or glob as a source the engine reads: DuckDB
     ``read_parquet('...')`` (a folder: every Parquet file below it) or, for text files,
-    ``read_csv('...', all_varchar = true)`` (groupings keep their text, as foldsift reads
-    them); Spark ``parquet.`...```. PostgreSQL reads tables only (give a table name)."""
+    ``read_csv('...', all_varchar = true, nullstr = [...])`` (groupings keep their text, as
+    foldsift reads them, and the missing markers in lower, upper and title case are null);
+    Spark ``parquet.`...```. PostgreSQL reads tables only (give a table name)."""
     _words(dialect)
     text = str(path)
     is_text = text.lower().endswith(_TEXT_SUFFIXES)
     if dialect == "duckdb":
         if is_text:
-            return Source(f"read_csv({string_literal(text, dialect)}, all_varchar = true)")
+            spellings = sorted({f(word) for word in MISSING_WORDS for f in _CASES})
+            markers = ", ".join(string_literal(word, dialect) for word in spellings)
+            return Source(
+                f"read_csv({string_literal(text, dialect)}, header = true, "
+                f"all_varchar = true, nullstr = [{markers}])"
+            )
         if Path(text).is_dir():
             text = text.rstrip("/") + "/**/*.parquet"
         return Source(f"read_parquet({string_literal(text, dialect)})")
@@ -170,12 +193,14 @@ def source_for(path: str | Path, dialect: Dialect) -> Source:
 
 
 def _value(outcome: str, words: _Words, dialect: Dialect) -> str:
-    """The outcome as a double, null where it is NaN or infinite (missing to the raw scan)."""
+    """The outcome as a double, null where it is NaN or infinite (missing to the raw scan).
+
+    x - x = 0 holds exactly for finite x (IEEE 754: NaN - NaN and inf - inf are NaN) in all
+    three engines, and no optimiser can answer it from a file's statistics, which may leave
+    NaN out (DuckDB 2.0 took ``x NOT IN ('NaN', 'Infinity', '-Infinity')`` as true for
+    every row of a Parquet file whose statistics gave a finite range)."""
     cast = f"CAST({quote_name(outcome, dialect)} AS {words.double})"
-    special = ", ".join(
-        f"CAST('{word}' AS {words.double})" for word in ("NaN", "Infinity", "-Infinity")
-    )
-    return f"CASE WHEN {cast} NOT IN ({special}) THEN {cast} END"
+    return f"CASE WHEN {cast} - {cast} = 0 THEN {cast} END"
 
 
 def _aggregates(index: int, words: _Words, median: bool) -> list[str]:
@@ -195,19 +220,14 @@ def _aggregates(index: int, words: _Words, median: bool) -> list[str]:
 
 
 def _pass(
-    number: int, grouping: str, outcomes: Sequence[str], source: str, options: _Options
+    number: int, grouping: str, batch: Sequence[tuple[int, str]], source: str, options: _Options
 ) -> str:
-    """One aggregation over the source for one grouping: every outcome's figures per level."""
+    """One aggregation over the source for one grouping: the figures per level of every
+    outcome of the batch (numbered as in the whole list)."""
     words, dialect = options.words, options.dialect
     level = f"TRIM(CAST({quote_name(grouping, dialect)} AS {words.text}))"
-    values = [
-        f"{_value(outcome, words, dialect)} AS v{index}" for index, outcome in enumerate(outcomes)
-    ]
-    figures = [
-        figure
-        for index in range(len(outcomes))
-        for figure in _aggregates(index, words, options.median)
-    ]
+    values = [f"{_value(outcome, words, dialect)} AS v{index}" for index, outcome in batch]
+    figures = [figure for index, _ in batch for figure in _aggregates(index, words, options.median)]
     missing = ", ".join(string_literal(word, dialect) for word in MISSING_WORDS)
     lines = [
         f"pass{number} AS{words.materialized} (",
@@ -239,6 +259,10 @@ class _Options:
     median: bool
 
 
+def _figure_names(options: _Options) -> list[str]:
+    return [name for name in QUERY_COLUMNS[3:] if options.median or name != "median"]
+
+
 def _rows(number: int, grouping: str, index: int, outcome: str, options: _Options) -> str:
     """The summary rows of one grouping × outcome from its pass."""
     dialect = options.dialect
@@ -246,13 +270,32 @@ def _rows(number: int, grouping: str, index: int, outcome: str, options: _Option
         f"{string_literal(grouping, dialect)} AS {quote_name('grouping', dialect)}",
         f"lvl AS {quote_name('level', dialect)}",
         f"{string_literal(outcome, dialect)} AS {quote_name('outcome', dialect)}",
-        *[
-            f"{name}_{index} AS {quote_name(name, dialect)}"
-            for name in QUERY_COLUMNS[3:]
-            if options.median or name != "median"
-        ],
+        *[f"{name}_{index} AS {quote_name(name, dialect)}" for name in _figure_names(options)],
     ]
     return f"SELECT {', '.join(columns)}\nFROM pass{number}"
+
+
+def _stacked(
+    number: int, grouping: str, batch: Sequence[tuple[int, str]], options: _Options
+) -> str:
+    """The summary rows of one grouping × every outcome of a pass, its columns stacked into
+    rows by one LATERAL VIEW STACK (Spark)."""
+    dialect = options.dialect
+    figures = _figure_names(options)
+    items = [
+        ", ".join([string_literal(outcome, dialect), *[f"{name}_{index}" for name in figures]])
+        for index, outcome in batch
+    ]
+    names = ", ".join(quote_name(name, dialect) for name in ("outcome", *figures))
+    lines = [
+        f"SELECT {string_literal(grouping, dialect)} AS {quote_name('grouping', dialect)}, "
+        f"lvl AS {quote_name('level', dialect)}, {names}",
+        f"FROM pass{number}",
+        f"LATERAL VIEW STACK({len(batch)},",
+        *_listed(items, "  "),
+        f") stacked AS {names}",
+    ]
+    return "\n".join(lines)
 
 
 def _checked(groupings: Sequence[str], outcomes: Sequence[str]) -> None:
@@ -283,15 +326,19 @@ def summary_query(
     _checked(groupings, outcomes)
     options = _Options(dialect, _words(dialect), median)
     source = table.sql if isinstance(table, Source) else table_reference(table, dialect)
-    passes = [
-        _pass(number, grouping, outcomes, source, options)
-        for number, grouping in enumerate(groupings)
-    ]
-    selects = [
-        _rows(number, grouping, index, outcome, options)
-        for number, grouping in enumerate(groupings)
-        for index, outcome in enumerate(outcomes)
-    ]
+    size = options.words.outcomes_per_pass or len(outcomes)
+    numbered = list(enumerate(outcomes))
+    batches = [numbered[start : start + size] for start in range(0, len(numbered), size)]
+    passes: list[str] = []
+    selects: list[str] = []
+    for grouping in groupings:
+        for batch in batches:
+            number = len(passes)
+            passes.append(_pass(number, grouping, batch, source, options))
+            if options.words.stack:
+                selects.append(_stacked(number, grouping, batch, options))
+            else:
+                selects += [_rows(number, grouping, i, outcome, options) for i, outcome in batch]
     order = ", ".join(quote_name(name, dialect) for name in ("grouping", "outcome", "level"))
     head = (
         f"-- foldsift summary table ({dialect}): {len(groupings)} grouping(s) x "
@@ -339,6 +386,46 @@ def _not_plain(reading: ColumnReading) -> str | None:
     return "; ".join(found) or None
 
 
+def _header_names(path: Path) -> list[str] | None:
+    """The column names of a file that has a header and no data rows (None otherwise)."""
+    try:
+        if path.suffix.lower() in (".parquet", ".pq"):
+            if pl.scan_parquet(path).select(pl.len()).collect().item() > 0:
+                return None
+            header = list(pl.read_parquet_schema(path))
+        else:
+            text = path.read_text(encoding="utf-8-sig", errors="replace")
+            lines = [line for line in text.splitlines() if line.strip()]
+            lines = [line for line in lines if not line.startswith("#")]
+            lines = [line for line in lines if not line.lower().startswith("sep=")]
+            if len(lines) != 1:
+                return None
+            separator = sniff_separator(lines[0], path.suffix.lower())
+            header = next(csv.reader([lines[0]], delimiter=separator))
+    except (OSError, ValueError, pl.exceptions.PolarsError):
+        return None
+    return name_columns(header)[0]
+
+
+def _named_only(
+    path: Path, groupings: Sequence[str], outcomes: Sequence[str], error: InputError
+) -> QueryColumns:
+    """The named columns of a file with no data rows (its header names them)."""
+    names = _header_names(path)
+    if names is None:
+        raise error
+    if not (groupings and outcomes):
+        raise InputError(
+            f"{path}: has no data rows, so the columns' roles cannot be guessed; give a "
+            "sample of the data, or name every column with --group and --outcome"
+        )
+    missing = [name for name in (*groupings, *outcomes) if name not in names]
+    if missing:
+        raise InputError(f"{path}: no column named {missing[0]!r}; columns are: {', '.join(names)}")
+    _checked(groupings, outcomes)
+    return QueryColumns(tuple(groupings), tuple(outcomes), {})
+
+
 def query_columns(
     path: Path | str,
     groupings: Sequence[str] = (),
@@ -347,34 +434,26 @@ def query_columns(
     reading: ReadOptions | None = None,
     wide: bool = False,
 ) -> QueryColumns:
-    """The columns of ``path`` (the data, a sample of it, or a header-only file when both
-    roles are named) that a scan would compare."""
+    """The columns of ``path`` that a scan would compare: ``path`` is the data, a sample of
+    it, or (when both roles are named) a file with just the header. A long table (one row
+    per sample x analyte) is refused unless ``wide``: the query needs a column per outcome."""
     path = Path(path)
-    if groupings and outcomes:
+    try:
         raw = read_raw(path, reading)
-        if raw.height == 0:
-            missing = [n for n in (*groupings, *outcomes) if n not in raw.columns]
-            if missing:
-                raise InputError(f"{path}: no column named {missing[0]!r}")
-            _checked(groupings, outcomes)
-            return QueryColumns(tuple(groupings), tuple(outcomes), {})
-    elif read_raw(path, reading).height == 0:
+    except InputError as error:
+        return _named_only(path, groupings, outcomes, error)
+    if not wide and find_long_columns(raw.columns, LongOptions()) is not None:
         raise InputError(
-            f"{path}: has no data rows, so the columns' roles cannot be guessed; give a "
-            "sample of the data, or name every column with --group and --outcome"
+            f"{path}: looks like a long table (one row per sample x analyte); the query needs "
+            "one column per outcome: pivot it first, or add --wide to take it as it is"
         )
     table = load_table(
         path,
         groupings=groupings or None,
         outcomes=outcomes or None,
         reading=reading,
-        long=LongOptions(recognise=not wide),
+        long=LongOptions(recognise=False),
     )
-    if any(note.startswith("read as a long table") for note in table.notes):
-        raise InputError(
-            f"{path}: looks like a long table (one row per sample x analyte); the query needs "
-            "one column per outcome: pivot it first, or add --wide to take it as it is"
-        )
     not_plain = {name: _not_plain(table.readings[name]) for name in table.readings}
     return QueryColumns(
         table.groupings, table.outcomes, {k: v for k, v in not_plain.items() if v is not None}

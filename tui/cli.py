@@ -27,6 +27,7 @@ from foldsift.stats.vocabulary import (
     FAMILIES,
     NONPOSITIVE_POLICIES,
     PAIRS,
+    SQL_DIALECTS,
     TESTS,
 )
 
@@ -567,6 +568,16 @@ def build_parser() -> argparse.ArgumentParser:
     _add_export_command(
         commands.add_parser("export", help="write reviewed rows to CSV without the app")
     )
+    _add_summary_sql_command(
+        commands.add_parser(
+            "summary-sql", help="print the SQL that summarises the data where it lives"
+        )
+    )
+    _add_summary_merge_command(
+        commands.add_parser(
+            "summary-merge", help="merge summary tables of partitions into one (CSV)"
+        )
+    )
     return parser
 
 
@@ -692,6 +703,130 @@ def _add_formula_option(parser: argparse.ArgumentParser) -> None:
     )
 
 
+# -- summaries on a database or cluster ---------------------------------------------------
+
+
+def _add_summary_sql_command(command: argparse.ArgumentParser) -> None:
+    command.description = (
+        "Print one SQL query that returns the per-group summary table (grouping, level, "
+        "outcome, n, mean_log, sd_log, median, n_missing, n_excluded) for the engine that "
+        "holds the data; save its result as CSV and run 'foldsift scan --summary FILE.csv'. "
+        "The columns compared are chosen as 'foldsift scan' chooses them from DATA. The "
+        "query reads every outcome column as numbers: entries below a detection limit "
+        "(<0.5, ND), units in cells and decimal commas must be handled before (censored "
+        "groups go in as censored fit rows; README, --summary)."
+    )
+    command.add_argument(
+        "data",
+        type=Path,
+        metavar="DATA",
+        help="CSV, TSV or Parquet: the data, a sample of it, or (with --group and --outcome) "
+        "a file holding just its header",
+    )
+    command.add_argument("--engine", choices=SQL_DIALECTS, required=True, help="SQL dialect")
+    source = command.add_mutually_exclusive_group()
+    source.add_argument(
+        "--table", metavar="NAME", help="the table or view on the engine (lab.samples)"
+    )
+    source.add_argument(
+        "--parquet",
+        metavar="PATH",
+        help="Parquet file, folder or glob the engine reads (duckdb, spark; default: DATA)",
+    )
+    command.add_argument("--group", action="append", metavar="COL", help="grouping (repeat)")
+    command.add_argument("--outcome", action="append", metavar="COL", help="outcome (repeat)")
+    command.add_argument(
+        "--no-median",
+        action="store_true",
+        help="leave medians out (an exact median sorts each group's values)",
+    )
+    command.add_argument("--encoding", metavar="NAME", help="text encoding of DATA")
+    command.add_argument("--wide", action="store_true", help="never read DATA as a long table")
+
+
+def command_summary_sql(args: argparse.Namespace) -> int:
+    from foldsift.stats.load import ReadOptions
+    from foldsift.stats.summary_sql import query_columns, source_for, summary_query
+
+    columns = query_columns(
+        args.data,
+        args.group or (),
+        args.outcome or (),
+        reading=ReadOptions(encoding=args.encoding),
+        wide=args.wide,
+    )
+    source = args.table or source_for(args.parquet or args.data, args.engine)
+    query = summary_query(
+        source, columns.groupings, columns.outcomes, args.engine, median=not args.no_median
+    )
+    print(
+        f"foldsift: {args.data.name}: {len(columns.groupings)} grouping(s) "
+        f"({', '.join(columns.groupings)}), {len(columns.outcomes)} outcome(s); "
+        f"{args.engine} query on stdout",
+        file=sys.stderr,
+    )
+    for name, found in columns.not_plain.items():
+        print(
+            f"foldsift: warning: {name}: holds entries that are not plain numbers ({found}); "
+            "the query casts the column to numbers, so handle them on the engine first",
+            file=sys.stderr,
+        )
+    sys.stdout.write(query)
+    return 0
+
+
+def _add_summary_merge_command(command: argparse.ArgumentParser) -> None:
+    command.description = (
+        "Merge summary tables of separate partitions of one data set (the same grouping, "
+        "level and outcome in several files) into the summary of the whole: counts added, "
+        "means and SDs of the logs combined exactly. Medians cannot be merged and are left "
+        "empty. Text is written as it is (no spreadsheet-formula guard), so that "
+        "'foldsift scan --summary' reads the levels unchanged."
+    )
+    command.add_argument(
+        "parts", type=Path, nargs="+", metavar="PART", help="summary table (CSV, TSV, Parquet)"
+    )
+    command.add_argument("--out", type=Path, metavar="FILE.csv", help="write here, not stdout")
+    command.add_argument("--overwrite", action="store_true", help="replace FILE.csv if it exists")
+
+
+def command_summary_merge(args: argparse.Namespace) -> int:
+    from foldsift.stats.summary_sql import merge_summaries, read_summary_parts
+
+    from .export import csv_text, write_export
+
+    out: Path | None = args.out
+    if out is not None:
+        if any(out.exists() and out.resolve() == part.resolve() for part in args.parts):
+            raise InputError(f"{out}: is one of the parts; choose another name for the CSV")
+        args.data = args.parts[0]
+        _check_out(out, args)
+    parts = read_summary_parts(args.parts)
+    merged = merge_summaries(parts)
+    print(
+        f"foldsift: merged {parts.height} rows of {len(args.parts)} file(s) into "
+        f"{merged.height} groups (medians left empty: they cannot be merged)",
+        file=sys.stderr,
+    )
+    if out is None:
+        sys.stdout.write(csv_text(merged, allow_formulas=True).write_csv())
+        return 0
+    metadata = {"merged_from": [str(part) for part in args.parts], "medians": "not merged"}
+
+    def write() -> int:
+        write_export(
+            merged,
+            out,
+            metadata,
+            overwrite=args.overwrite,
+            protect=list(args.parts),
+            allow_formulas=True,
+        )
+        return merged.height
+
+    return _guarded_write(args, write)
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -699,7 +834,13 @@ def main(argv: list[str] | None = None) -> int:
         QUIET.set()
     else:
         QUIET.clear()
-    handlers = {"scan": command_scan, "review": command_review, "export": command_export}
+    handlers = {
+        "scan": command_scan,
+        "review": command_review,
+        "export": command_export,
+        "summary-sql": command_summary_sql,
+        "summary-merge": command_summary_merge,
+    }
     try:
         return handlers[args.command](args)
     except InputError as error:
