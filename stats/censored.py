@@ -90,7 +90,8 @@ from typing import NamedTuple
 import numpy as np
 import numpy.typing as npt
 from scipy import special
-from scipy import stats as sps
+
+from .distributions import t_ppf, t_sf
 
 FloatArray = npt.NDArray[np.float64]
 IntArray = npt.NDArray[np.int64]
@@ -699,8 +700,8 @@ def _t_result(
         df = np.where(valid, df, np.nan)
         d = np.where(valid, d, np.nan)
         t = d / se
-        p = 2 * sps.t.sf(np.abs(t), df)
-        t_critical = sps.t.ppf(0.5 + confidence / 2, df)
+        p = 2 * t_sf(np.abs(t), df)
+        t_critical = t_ppf(0.5 + confidence / 2, df)
     return CensoredComparison(
         d=d,
         se=se,

@@ -10,9 +10,10 @@ import math
 import numpy as np
 import numpy.typing as npt
 import polars as pl
-from scipy import stats as sps
 
 from .columns import P_VALUE, side
+from .distributions import f_cdf
+from .shapiro import shapiro_wilk
 from .values import GroupValues
 from .vocabulary import WARNING_NAMES, WarningName
 
@@ -133,7 +134,7 @@ def group_normality(values: GroupValues) -> pl.DataFrame:
         if SHAPIRO_RANGE[0] <= group_values.size <= SHAPIRO_RANGE[1]:
             logs = np.log(group_values)
             if np.ptp(logs) > 0:
-                w, p = (float(x) for x in sps.shapiro(logs))
+                w, p = shapiro_wilk(logs)
         rows.append((*group, w, p))
     return pl.DataFrame(
         rows,
@@ -154,7 +155,7 @@ def spread_test(sd_a: Array, n_a: Array, sd_b: Array, n_b: Array) -> Array:
     """Two-sided F-test p for equal log-scale variances."""
     with np.errstate(divide="ignore", invalid="ignore"):
         f = (sd_b / sd_a) ** 2
-        one_side = sps.f.cdf(f, n_b - 1, n_a - 1)
+        one_side = f_cdf(f, n_b - 1, n_a - 1)
         p: Array = np.minimum(1.0, 2 * np.minimum(one_side, 1 - one_side))
         return p
 

@@ -10,9 +10,9 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats as sps
 
 from .defaults import DEFAULT_BAND, check_band, parse_band
+from .distributions import t_cdf, t_ppf, t_sf
 from .vocabulary import BandClass
 
 __all__ = ["BAND_CLASSES", "DEFAULT_BAND", "band_class", "check_band", "parse_band", "tost"]
@@ -37,9 +37,9 @@ def tost(
     check_band(*band)
     log_low, log_high = math.log(band[0]), math.log(band[1])
     with np.errstate(divide="ignore", invalid="ignore"):
-        p_lower = sps.t.sf((difference - log_low) / standard_error, df)
-        p_upper = sps.t.cdf((difference - log_high) / standard_error, df)
-        critical = sps.t.ppf(1 - alpha, df)
+        p_lower = t_sf((difference - log_low) / standard_error, df)
+        p_upper = t_cdf((difference - log_high) / standard_error, df)
+        critical = t_ppf(1 - alpha, df)
         low = np.exp(difference - critical * standard_error)
         high = np.exp(difference + critical * standard_error)
     return np.maximum(p_lower, p_upper), low, high

@@ -65,7 +65,6 @@ from typing import Literal, NamedTuple, get_args
 import numpy as np
 import numpy.typing as npt
 import polars as pl
-from scipy import stats as sps
 
 from . import equivalence
 from .diagnostics import (
@@ -76,6 +75,7 @@ from .diagnostics import (
     OUTLIER_ALPHA,
     WARNINGS,
 )
+from .distributions import norm_ppf, t_ppf, t_sf
 from .entries import MISSING
 from .errors import InputError
 from .load import DerivedNames
@@ -495,8 +495,8 @@ def paired_t(
         df = np.where(valid, n - 1, np.nan)
         difference = np.where(valid, mean, np.nan)
         t = difference / se
-        p_value = 2 * sps.t.sf(np.abs(t), df)
-        t_critical = sps.t.ppf(0.5 + confidence / 2, df)
+        p_value = 2 * t_sf(np.abs(t), df)
+        t_critical = t_ppf(0.5 + confidence / 2, df)
     return LogTTest(
         difference=difference,
         standard_error=se,
@@ -544,7 +544,7 @@ def paired_detectable_ratio(
     valid = (n >= 2) & (sd > 0) & np.isfinite(sd)
     scale = np.where(valid, sd / np.sqrt(np.maximum(n, 1)), np.nan)
     if method == "normal":
-        delta = (sps.norm.ppf(1 - alpha / 2) + sps.norm.ppf(power)) * scale
+        delta = (norm_ppf(1 - alpha / 2) + norm_ppf(power)) * scale
         with np.errstate(over="ignore"):
             ratio: Array = np.exp(delta)
             return ratio
@@ -552,7 +552,7 @@ def paired_detectable_ratio(
         raise ValueError("method must be 't' or 'normal'")
     df = np.where(valid, n - 1, 1.0)
     distinct, inverse = np.unique(df, return_inverse=True)
-    critical = sps.t.ppf(1 - alpha / 2, distinct)
+    critical = t_ppf(1 - alpha / 2, distinct)
     # With one df the noncentrality must reach several critical values (about 1.3 c at 80%
     # power, the 80% point of |N(0, 1)| times c): search up to 60 + 5 c.
     ncp = _bisect(
@@ -600,7 +600,7 @@ def n_pairs_needed(
     valid = (sd > 0) & np.isfinite(sd)
     effect = abs(math.log(target_ratio)) / np.where(valid, sd, 1.0)
     if method == "normal":
-        n = (sps.norm.ppf(1 - alpha / 2) + sps.norm.ppf(power)) ** 2 / effect**2
+        n = (norm_ppf(1 - alpha / 2) + norm_ppf(power)) ** 2 / effect**2
         needed: Array = np.where(valid, np.maximum(np.ceil(n), 2), np.nan)
         return needed
     if method != "t":
@@ -617,7 +617,7 @@ def outlier_p(n_pairs: npt.ArrayLike, influence: npt.ArrayLike) -> Array:
     shift = np.asarray(influence, dtype=float)
     with np.errstate(invalid="ignore", over="ignore"):
         t = shift * np.sqrt(n)
-        p: Array = np.minimum(1.0, n * 2 * sps.t.sf(t, n - 2))
+        p: Array = np.minimum(1.0, n * 2 * t_sf(t, n - 2))
     return np.where((n >= INFLUENCE_MIN_N) & ~np.isnan(shift), p, np.nan)
 
 
@@ -738,7 +738,7 @@ class CrossoverResult:
         """The CI of the ratio at ``confidence`` (90% by default: the equivalence rule)."""
         if not 0 < confidence < 1:
             raise ValueError(f"confidence must be between 0 and 1, got {confidence}")
-        critical = sps.t.ppf(0.5 + confidence / 2, self.test.df)
+        critical = t_ppf(0.5 + confidence / 2, self.test.df)
         spread = critical * self.test.standard_error
         with np.errstate(over="ignore"):
             return RatioInterval(
@@ -951,8 +951,8 @@ def _crossover_test(
         df = np.where(valid, df, np.nan)
         difference = np.where(valid, (m1 + m2) / 2, np.nan)
         t = difference / se
-        p_value = 2 * sps.t.sf(np.abs(t), df)
-        critical = sps.t.ppf(0.5 + confidence / 2, df)
+        p_value = 2 * t_sf(np.abs(t), df)
+        critical = t_ppf(0.5 + confidence / 2, df)
     test = LogTTest(
         difference=difference,
         standard_error=se,

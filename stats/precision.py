@@ -14,7 +14,8 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import numpy as np
-from scipy import stats as sps
+
+from .distributions import nct_sf, norm_ppf, t_ppf
 
 DEFAULT_POWER = 0.80
 
@@ -23,11 +24,11 @@ def _power(
     ncp: np.ndarray, df: np.ndarray, alpha: float, critical: np.ndarray | None = None
 ) -> np.ndarray:
     if critical is None:
-        critical = sps.t.ppf(1 - alpha / 2, df)
+        critical = t_ppf(1 - alpha / 2, df)
     # Lower tail P(T' < -c; ncp) as P(T' > c; -ncp) (T'(ncp) and -T'(-ncp) have one law):
     # scipy's nct.cdf returns NaN far in that tail (e.g. df 98, ncp 10), which broke the
     # bisection; nct.sf does not.
-    power: np.ndarray = sps.nct.sf(critical, df, ncp) + sps.nct.sf(critical, df, -ncp)
+    power: np.ndarray = nct_sf(critical, df, ncp) + nct_sf(critical, df, -ncp)
     return power
 
 
@@ -67,7 +68,7 @@ def detectable_ratio(
         valid, sd_log * np.sqrt(1 / np.maximum(n_a, 1) + 1 / np.maximum(n_b, 1)), np.nan
     )
     if method == "normal":
-        delta = (sps.norm.ppf(1 - alpha / 2) + sps.norm.ppf(power)) * scale
+        delta = (norm_ppf(1 - alpha / 2) + norm_ppf(power)) * scale
         with np.errstate(over="ignore"):
             ratio: np.ndarray = np.exp(delta)
             return ratio
@@ -76,7 +77,7 @@ def detectable_ratio(
     df = np.where(valid, n_a + n_b - 2, 2.0)
     # The noncentrality that gives the power depends on df alone: solve once per distinct df.
     distinct, inverse = np.unique(df, return_inverse=True)
-    critical = sps.t.ppf(1 - alpha / 2, distinct)  # fixed during the search: compute once
+    critical = t_ppf(1 - alpha / 2, distinct)  # fixed during the search: compute once
     # 52 halvings of [0, 60] leave an interval of about 1e-14.
     ncp = _bisect(
         lambda x: _power(x, distinct, alpha, critical) - power,
@@ -104,7 +105,7 @@ def n_per_group(
     valid = (sd_log > 0) & np.isfinite(sd_log)
     effect = abs(np.log(target_ratio)) / np.where(valid, sd_log, 1.0)
     if method == "normal":
-        n = 2 * (sps.norm.ppf(1 - alpha / 2) + sps.norm.ppf(power)) ** 2 / effect**2
+        n = 2 * (norm_ppf(1 - alpha / 2) + norm_ppf(power)) ** 2 / effect**2
         return np.where(valid, np.ceil(n), np.nan)
     if method != "t":
         raise ValueError("method must be 't' or 'normal'")

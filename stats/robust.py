@@ -34,12 +34,12 @@ from typing import TYPE_CHECKING
 import numpy as np
 import numpy.typing as npt
 import polars as pl
-from scipy import stats as sps
 from scipy.special import gammaln
 
 from .columns import CROSS_CHECK_SCHEMA, ComparisonRow, Side, comparison_row
 from .defaults import DEFAULT_RESAMPLES as DEFAULT_RESAMPLES
 from .defaults import DEFAULT_SEED as DEFAULT_SEED
+from .distributions import norm_cdf, norm_ppf
 from .peto import peto_prentice
 from .values import GroupId
 
@@ -93,6 +93,8 @@ def bootstrap_medians(values: FloatArray, resamples: int, rng: np.random.Generat
     draws fell at or below j, and then the other n - m draws are independent and uniform
     over the indices above j, so K_(m+1) - j is the smallest of n - m uniform draws from
     1..n-j. Each replicate has the distribution of np.median of a resample."""
+    from scipy import stats as sps  # only the cross-checks need scipy.stats
+
     ordered = np.sort(np.asarray(values, dtype=float))
     n = ordered.size
     if n == 0:
@@ -186,13 +188,13 @@ def bca_interval(
         return math.nan, math.nan
     below = float(np.mean(replicates < estimate) + 0.5 * np.mean(replicates == estimate))
     below = min(max(below, 1 / (2 * replicates.size)), 1 - 1 / (2 * replicates.size))
-    bias = float(sps.norm.ppf(below))
+    bias = float(norm_ppf(below))
     samples = [jackknife] if isinstance(jackknife, np.ndarray) else list(jackknife)
     acceleration = bca_acceleration(samples)
     alpha = (1 - confidence) / 2
     bounds = []
-    for z in (float(sps.norm.ppf(alpha)), float(sps.norm.ppf(1 - alpha))):
-        adjusted = float(sps.norm.cdf(bias + (bias + z) / (1 - acceleration * (bias + z))))
+    for z in (float(norm_ppf(alpha)), float(norm_ppf(1 - alpha))):
+        adjusted = float(norm_cdf(bias + (bias + z) / (1 - acceleration * (bias + z))))
         bounds.append(float(np.quantile(replicates, adjusted)))
     return bounds[0], bounds[1]
 
@@ -286,7 +288,7 @@ def hl_rank(n: int, m: int, confidence: float = 0.95) -> int:
         cumulative = np.cumsum(_mann_whitney_null(n, m))
         # P(U <= k - 1) <= tail for k = 1..K: count the u = k - 1 that qualify.
         return int(np.sum(cumulative <= tail * (1 + 1e-12)))
-    z = sps.norm.ppf(1 - tail)
+    z = norm_ppf(1 - tail)
     return max(int(math.floor(total / 2 - z * math.sqrt(total * (n + m + 1) / 12))), 0)
 
 
@@ -330,6 +332,8 @@ def robust_check(
     Low level: replicates not given are drawn here from one generator seeded with ``seed``
     (a's first). To check many comparisons use ``CrossChecker``, which passes each group's
     own replicates in."""
+    from scipy import stats as sps  # only the cross-checks need scipy.stats
+
     if a.size < 2 or b.size < 2:
         return NAN_CHECK
     rng = np.random.default_rng(seed)

@@ -11,7 +11,6 @@ from typing import Any, Literal
 import numpy as np
 import numpy.typing as npt
 import polars as pl
-from scipy import stats as sps
 
 from . import diagnostics, equivalence, precision
 from .censored import CensoredComparison
@@ -19,6 +18,7 @@ from .censored_groups import SUMMARY_EXTRA, GroupEntries, merge_censored
 from .columns import COMPARISON_SCHEMA, key_expression, side
 from .defaults import DEFAULT_MAX_COMPARISONS, Reference
 from .design import DESIGN_SCHEMA, crossover_rows, paired_rows
+from .distributions import t_ppf, t_sf
 from .load import InputError, Table
 from .multiplicity import adjust
 from .policy import ValuePolicy, apply_policy
@@ -590,7 +590,7 @@ def _with_rows(
         replaced[name] = column
     with np.errstate(divide="ignore", invalid="ignore"):
         t = replaced["difference"] / replaced["standard_error"]
-        t_critical = sps.t.ppf(0.5 + confidence / 2, replaced["df"])
+        t_critical = t_ppf(0.5 + confidence / 2, replaced["df"])
     return LogTTest(t=t, t_critical=t_critical, **replaced)
 
 
@@ -627,8 +627,8 @@ def _design_test(test: LogTTest, frame: pl.DataFrame, confidence: float) -> LogT
     df = frame["design_df"].cast(pl.Float64).fill_null(np.nan).to_numpy()[rows]
     d = difference[rows]
     with np.errstate(divide="ignore", invalid="ignore"):
-        p = 2 * sps.t.sf(np.abs(d / se), df)
-        critical = sps.t.ppf(0.5 + confidence / 2, df)
+        p = 2 * t_sf(np.abs(d / se), df)
+        critical = t_ppf(0.5 + confidence / 2, df)
     joint = CensoredComparison(d, se, df, d - critical * se, d + critical * se, p)
     return _with_rows(test, rows, joint, confidence)
 

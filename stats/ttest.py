@@ -9,8 +9,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats as sps
 
+from .distributions import t_ppf, t_sf
 from .vocabulary import TESTS, Test
 
 
@@ -87,8 +87,8 @@ def log_t_test(
         df = np.where(valid, df, np.nan)
         difference = np.where(valid, difference, np.nan)
         t = difference / se
-        p_value = 2 * sps.t.sf(np.abs(t), df)
-        t_critical = sps.t.ppf(0.5 + confidence / 2, df)
+        p_value = 2 * t_sf(np.abs(t), df)
+        t_critical = t_ppf(0.5 + confidence / 2, df)
     return LogTTest(
         difference=difference,
         standard_error=se,
