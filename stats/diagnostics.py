@@ -129,7 +129,7 @@ def group_normality(values: GroupValues) -> pl.DataFrame:
     One call per group, not per comparison. Outside the range, or with no spread, the
     result is NaN."""
     rows: list[tuple[str, str | None, str | None, str, str, float, float]] = []
-    for group, group_values in values.groups():
+    for group, group_values in values.each_group():
         w = p = math.nan
         if SHAPIRO_RANGE[0] <= group_values.size <= SHAPIRO_RANGE[1]:
             logs = np.log(group_values)

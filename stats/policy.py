@@ -62,8 +62,17 @@ def apply_policy(
     nor excluded: the censored fit (``censored_groups``) takes them at their limits. Missing
     entries count as neither excluded nor substituted.
     """
+    clean = _clean_outcomes(frame, outcomes, names)
     exprs: list[pl.Expr] = []
     for name in outcomes:
+        if name in clean:
+            # Nothing to leave out or replace: the values themselves (no copy is made).
+            exprs += [
+                pl.col(name).alias(names.used(name)),
+                pl.repeat(False, pl.len()).alias(names.excluded(name)),
+                pl.repeat(False, pl.len()).alias(names.substituted(name)),
+            ]
+            continue
         value = pl.col(name)
         censored = pl.col(names.censored(name))
         above = (
@@ -108,3 +117,22 @@ def apply_policy(
             substituted.fill_null(False).alias(names.substituted(name)),
         ]
     return frame.with_columns(exprs)
+
+
+def _clean_outcomes(
+    frame: pl.DataFrame, outcomes: tuple[str, ...], names: DerivedNames
+) -> set[str]:
+    """The outcomes with no censored, coded, zero or negative entry: every value is used as
+    it is (one pass over the table)."""
+    if not outcomes:
+        return set()
+    checks = [
+        (
+            pl.col(names.censored(name)).any()
+            | (pl.col(name) <= 0).any()
+            | pl.lit(names.kind(name) in frame.columns)
+        ).alias(name)
+        for name in outcomes
+    ]
+    row = frame.select(checks).row(0, named=True)
+    return {name for name in outcomes if not row[name]}

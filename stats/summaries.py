@@ -42,6 +42,9 @@ SUMMARY_SCHEMA = pl.Schema(
 )
 
 _STATS = [name for name in SUMMARY_SCHEMA if name not in GROUP_COLUMNS]
+#: Outcomes aggregated together: the working memory of a batch (its logs and the per-group
+#: sorting for medians) is what the summaries add to the table's own.
+OUTCOME_BATCH = 16
 
 
 def mean_and_sum_of_squares(values: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
@@ -118,28 +121,32 @@ def group_summaries(
     """One row per grouping × stratum × level × outcome (rows whose group or stratum is
     missing are left out)."""
     coded = {o for o in outcomes if names.kind(o) in frame.columns}
-    aggregations = [
-        expr for outcome in outcomes for expr in _aggregations(outcome, names, outcome in coded)
-    ]
-    plans = [
-        frame.lazy()
-        .with_columns([pl.col(names.used(o)).log().alias(names.log(o)) for o in outcomes])
-        .drop_nulls(spec.keys)
-        .group_by(spec.keys)
-        .agg(aggregations)
-        for spec in specs
-    ]
     parts: list[pl.DataFrame] = []
-    for spec, wide in zip(specs, pl.collect_all(plans), strict=True):
-        identity = _identity(spec)
-        for outcome in outcomes:
-            parts.append(
-                wide.select(
-                    *identity,
-                    pl.lit(outcome, pl.Utf8).alias("outcome"),
-                    *[_stat(outcome, stat, names, outcome in coded) for stat in _STATS],
+    # Outcomes in batches: the logs and the per-group sorting behind the medians are made for
+    # one batch at a time, so the memory they take is a batch's, not the table's.
+    for start in range(0, len(outcomes), OUTCOME_BATCH):
+        batch = list(outcomes[start : start + OUTCOME_BATCH])
+        aggregations = [
+            expr for outcome in batch for expr in _aggregations(outcome, names, outcome in coded)
+        ]
+        plans = [
+            frame.lazy()
+            .with_columns([pl.col(names.used(o)).log().alias(names.log(o)) for o in batch])
+            .drop_nulls(spec.keys)
+            .group_by(spec.keys)
+            .agg(aggregations)
+            for spec in specs
+        ]
+        for spec, wide in zip(specs, pl.collect_all(plans), strict=True):
+            identity = _identity(spec)
+            for outcome in batch:
+                parts.append(
+                    wide.select(
+                        *identity,
+                        pl.lit(outcome, pl.Utf8).alias("outcome"),
+                        *[_stat(outcome, stat, names, outcome in coded) for stat in _STATS],
+                    )
                 )
-            )
     if not parts:
         return pl.DataFrame(schema=SUMMARY_SCHEMA)
     result = pl.concat(parts, how="vertical")

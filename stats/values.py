@@ -97,3 +97,20 @@ class GroupValues:
                 for outcome in self._outcomes:
                     values = part[self._names.used(outcome)].drop_nulls().to_numpy()
                     yield (spec.grouping, spec.within, stratum, level, outcome), values
+
+    def each_group(self, batch: int = 16) -> Iterator[tuple[GroupId, np.ndarray]]:
+        """Every group with its values, like ``groups`` but a batch of outcomes at a time and
+        without keeping the split table: the memory it takes is one batch's."""
+        for spec in self._specs:
+            for start in range(0, len(self._outcomes), batch):
+                chosen = self._outcomes[start : start + batch]
+                columns = [self._names.used(o) for o in chosen]
+                frame = self._used.select(*spec.keys, *columns).drop_nulls(spec.keys)
+                parts = frame.partition_by(spec.keys, as_dict=True, include_key=False)
+                for key, part in parts.items():
+                    stratum, level = (
+                        (str(key[0]), str(key[1])) if spec.within else (None, str(key[0]))
+                    )
+                    for outcome, column in zip(chosen, columns, strict=True):
+                        group = (spec.grouping, spec.within, stratum, level, outcome)
+                        yield group, part[column].drop_nulls().to_numpy()
