@@ -72,51 +72,57 @@ def apply_policy(
                 pl.repeat(False, pl.len()).alias(names.excluded(name)),
                 pl.repeat(False, pl.len()).alias(names.substituted(name)),
             ]
-            continue
-        value = pl.col(name)
-        censored = pl.col(names.censored(name))
-        above = (
-            pl.col(names.kind(name)) == ABOVE
-            if policy.censored == "mle" and names.kind(name) in frame.columns
-            else pl.lit(False)
-        )
-        plain = value.is_not_null() & ~censored
-        nonpositive = plain & (value <= 0)
-        smallest_positive = value.filter(plain & (value > 0)).min()
-        if policy.nonpositive == "half-min":
-            nonpositive_value = smallest_positive / 2
         else:
-            nonpositive_value = pl.lit(None, dtype=pl.Float64)
-        if policy.censored == "half-dl":
-            censored_value = value / 2
-        elif policy.censored == "dl-root2":
-            censored_value = value / math.sqrt(2)
-        else:
-            censored_value = pl.lit(None, dtype=pl.Float64)
-        censored_usable = censored & (value > 0)
-        used = (
-            pl.when(censored_usable)
-            .then(censored_value)
-            .when(censored)
-            .then(None)
-            .when(above & (value > 0))
-            .then(None)
-            .when(nonpositive)
-            .then(nonpositive_value)
-            .otherwise(value)
-        )
-        excluded = (censored & ((policy.censored == "exclude") | (value <= 0))) | (
-            nonpositive & (policy.nonpositive == "exclude")
-        )
-        substituted = (censored_usable & (policy.censored not in ("exclude", "mle"))) | (
-            nonpositive & (policy.nonpositive != "exclude")
-        )
-        exprs += [
-            used.alias(names.used(name)),
-            excluded.fill_null(False).alias(names.excluded(name)),
-            substituted.fill_null(False).alias(names.substituted(name)),
-        ]
+            exprs += _policy_columns(name, policy, names, names.kind(name) in frame.columns)
     return frame.with_columns(exprs)
+
+
+def _policy_columns(
+    name: str, policy: ValuePolicy, names: DerivedNames, coded: bool
+) -> list[pl.Expr]:
+    """The used value, excluded flag and substituted flag of one outcome under the policy
+    (``coded``: the outcome has a kind column, so above-range entries can be told apart)."""
+    value = pl.col(name)
+    censored = pl.col(names.censored(name))
+    above = (
+        pl.col(names.kind(name)) == ABOVE if policy.censored == "mle" and coded else pl.lit(False)
+    )
+    plain = value.is_not_null() & ~censored
+    nonpositive = plain & (value <= 0)
+    smallest_positive = value.filter(plain & (value > 0)).min()
+    if policy.nonpositive == "half-min":
+        nonpositive_value = smallest_positive / 2
+    else:
+        nonpositive_value = pl.lit(None, dtype=pl.Float64)
+    if policy.censored == "half-dl":
+        censored_value = value / 2
+    elif policy.censored == "dl-root2":
+        censored_value = value / math.sqrt(2)
+    else:
+        censored_value = pl.lit(None, dtype=pl.Float64)
+    censored_usable = censored & (value > 0)
+    used = (
+        pl.when(censored_usable)
+        .then(censored_value)
+        .when(censored)
+        .then(None)
+        .when(above & (value > 0))
+        .then(None)
+        .when(nonpositive)
+        .then(nonpositive_value)
+        .otherwise(value)
+    )
+    excluded = (censored & ((policy.censored == "exclude") | (value <= 0))) | (
+        nonpositive & (policy.nonpositive == "exclude")
+    )
+    substituted = (censored_usable & (policy.censored not in ("exclude", "mle"))) | (
+        nonpositive & (policy.nonpositive != "exclude")
+    )
+    return [
+        used.alias(names.used(name)),
+        excluded.fill_null(False).alias(names.excluded(name)),
+        substituted.fill_null(False).alias(names.substituted(name)),
+    ]
 
 
 def _clean_outcomes(
