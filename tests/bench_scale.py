@@ -17,6 +17,8 @@ Each table is written once as Parquet (one 6-level string grouping, lognormal ou
   reads the file and computes the summaries the scan needs must do;
 - the in-process stages of the scan (read, fingerprint, load, summaries, normality, fits,
   comparisons);
+- optionally (``--duckdb``) the same per-group summary as one SQL query on DuckDB
+  (``foldsift summary-sql``), the engine that spills to disk;
 - optionally the per-comparison loop a user writes (pandas boolean masks per pair of levels
   and ``scipy.stats.ttest_ind(equal_var=False)`` on the logs), at the two smaller sizes.
 
@@ -60,6 +62,15 @@ for name in outcomes:
         logs.var().alias(name + "v"), pl.col(name).median().alias(name + "q"),
     ]
 frame.group_by("site").agg(aggregations)
+"""
+
+
+DUCKDB = """
+import sys, duckdb
+from foldsift.stats.summary_sql import source_for, summary_query
+path, outcomes = sys.argv[1], int(sys.argv[2])
+names = [f"y{j:03d}" for j in range(outcomes)]
+duckdb.sql(summary_query(source_for(path, "duckdb"), ["site"], names, "duckdb")).fetchall()
 """
 
 
@@ -137,7 +148,8 @@ def loop(path: Path) -> float:
     from scipy import stats
 
     start = time.perf_counter()
-    frame = pd.read_parquet(path) if _has_pyarrow() else pl.read_parquet(path).to_pandas()
+    read = pl.read_parquet(path)
+    frame = pd.DataFrame({name: read[name].to_numpy() for name in read.columns})
     levels = sorted(frame["site"].unique())
     for name in [c for c in frame.columns if c != "site"]:
         for i, a in enumerate(levels):
@@ -146,14 +158,6 @@ def loop(path: Path) -> float:
                 y = frame.loc[(frame["site"] == b) & (frame[name] > 0), name]
                 stats.ttest_ind(np.log(y), np.log(x), equal_var=False)
     return time.perf_counter() - start
-
-
-def _has_pyarrow() -> bool:
-    try:
-        import pyarrow  # noqa: F401
-    except ImportError:
-        return False
-    return True
 
 
 def start_up(repeats: int) -> None:
@@ -173,6 +177,9 @@ def main() -> None:
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--loop", action="store_true")
     parser.add_argument("--start-up", action="store_true")
+    parser.add_argument(
+        "--duckdb", action="store_true", help="also time the summary query on DuckDB"
+    )
     args = parser.parse_args()
     print(f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
     start_up(args.repeats)
@@ -190,11 +197,16 @@ def main() -> None:
                 args.repeats,
             )
             floor_s, floor_mb = medians([sys.executable, "-c", FLOOR, str(path)], args.repeats)
+            engine = ""
+            if args.duckdb:
+                duck = [sys.executable, "-c", DUCKDB, str(path), str(outcomes)]
+                duck_s, duck_mb = medians(duck, args.repeats)
+                engine = f" | DuckDB summary query {duck_s:6.2f} s, peak {duck_mb:6.0f} MB"
             print(f"\n{label}: numeric data {data_mb:.0f} MB")
             print(
                 f"  foldsift scan {command_s:6.2f} s, peak {command_mb:6.0f} MB "
                 f"({command_mb / data_mb:.1f}x the data) | floor {floor_s:6.2f} s, peak "
-                f"{floor_mb:6.0f} MB | command / floor {command_s / floor_s:.2f}x"
+                f"{floor_mb:6.0f} MB | command / floor {command_s / floor_s:.2f}x{engine}"
             )
             for stage, seconds in stages(path).items():
                 print(f"    {stage:<24} {seconds:6.2f} s")
