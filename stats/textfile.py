@@ -35,6 +35,7 @@ import hashlib
 import io
 import re
 import stat
+import threading
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -332,14 +333,21 @@ def read_table_file(path: Path, encoding: str | None = None) -> RawTable:
     """Read a CSV/TSV/Parquet file once: the raw frame (text files as strings, so censored
     entries survive), the fingerprint of its bytes, its separator and the reader's notes."""
     data = read_bytes(path, encoding)
-    # A Parquet file starts and ends with the magic bytes PAR1 (Apache Parquet format).
-    if path.suffix.lower() in _PARQUET_SUFFIXES or (
-        data.startswith(b"PAR1") and data.endswith(b"PAR1")
-    ):
-        table = _read_parquet(path, data)
-    else:
-        table = _read_text(path, data, encoding)
+    # The fingerprint is taken while the bytes are parsed: hashlib and polars both release
+    # the interpreter lock, so on two cores the hash costs no extra time.
+    digest: list[str] = []
+    hasher = threading.Thread(target=lambda: digest.append(hashlib.sha256(data).hexdigest()))
+    hasher.start()
+    try:
+        # A Parquet file starts and ends with the magic bytes PAR1 (Apache Parquet format).
+        if path.suffix.lower() in _PARQUET_SUFFIXES or (
+            data.startswith(b"PAR1") and data.endswith(b"PAR1")
+        ):
+            table = _read_parquet(path, data)
+        else:
+            table = _read_text(path, data, encoding)
+    finally:
+        hasher.join()
     if table.frame.height == 0:
         raise InputError(f"{path}: has a header but no data rows; nothing to compare")
-    fingerprint = hashlib.sha256(data).hexdigest()
-    return RawTable(table.frame, fingerprint, table.separator, table.notes)
+    return RawTable(table.frame, digest[0], table.separator, table.notes)
