@@ -310,25 +310,8 @@ def run_scan(
     check_within(table, settings.within)
     specs: list[GroupSpec] = group_specs(table.groupings, settings.within)
     check_comparison_count(_level_sets(table, specs), len(table.outcomes), settings, table.name)
-    say(
-        f"summarising {table.frame.height:,} rows x {len(table.outcomes)} outcomes by "
-        f"{len(specs)} grouping(s)"
-    )
-    used = apply_policy(table.frame, table.outcomes, settings.policy, table.names)
-    values = GroupValues(used, specs, table.outcomes, table.names)
-    entries = GroupEntries(used, specs, table.outcomes, table.names, settings.policy)
-    summaries = group_summaries(used, specs, table.outcomes, table.names)
-    say(f"checking the logs of {summaries.height:,} groups")
-    normality = diagnostics.group_normality(values)
-    summaries = summaries.join(
-        normality,
-        on=["grouping", "within", "stratum", "level", "outcome"],
-        how="left",
-        nulls_equal=True,
-    )
-    if entries.outcomes:
-        say(f"fitting the below-detection entries of {len(entries.outcomes)} outcome(s)")
-    summaries = merge_censored(summaries, entries.figures(), settings.policy)
+    part = summarise(table, specs, settings.policy, say)
+    used, values, entries, summaries = part.used, part.values, part.entries, part.summaries
     completed = complete_summaries(summaries)
     say(f"comparing the levels of {completed.height:,} groups")
     comparisons = compare_summaries(
@@ -350,6 +333,44 @@ def run_scan(
         notes=table.notes,
     )
     return ScanResult(comparisons, summaries, settings, source, values, entries)
+
+
+@dataclass(frozen=True)
+class Summarised:
+    """The per-group figures of a table (or of a batch of its outcomes) before comparison:
+    the policy-applied frame, each group's values and censored entries, and the summaries
+    with the normality check and the censored figures merged in."""
+
+    used: pl.DataFrame
+    values: GroupValues
+    entries: GroupEntries
+    summaries: pl.DataFrame
+
+
+def summarise(
+    table: Table, specs: list[GroupSpec], policy: ValuePolicy, say: Progress = _silent
+) -> Summarised:
+    """Every group's figures: counts, log moments, medians, Shapiro-Wilk, censored fits."""
+    say(
+        f"summarising {table.frame.height:,} rows x {len(table.outcomes)} outcomes by "
+        f"{len(specs)} grouping(s)"
+    )
+    used = apply_policy(table.frame, table.outcomes, policy, table.names)
+    values = GroupValues(used, specs, table.outcomes, table.names)
+    entries = GroupEntries(used, specs, table.outcomes, table.names, policy)
+    summaries = group_summaries(used, specs, table.outcomes, table.names)
+    say(f"checking the logs of {summaries.height:,} groups")
+    normality = diagnostics.group_normality(values)
+    summaries = summaries.join(
+        normality,
+        on=["grouping", "within", "stratum", "level", "outcome"],
+        how="left",
+        nulls_equal=True,
+    )
+    if entries.outcomes:
+        say(f"fitting the below-detection entries of {len(entries.outcomes)} outcome(s)")
+    summaries = merge_censored(summaries, entries.figures(), policy)
+    return Summarised(used, values, entries, summaries)
 
 
 def _design(

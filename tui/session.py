@@ -79,6 +79,26 @@ class SessionOptions:
         return self.reviews_path or default_review_path(self.data_path)
 
 
+def _streamed(options: SessionOptions) -> bool:
+    """Parquet data read a batch of outcomes at a time: a folder or glob of part files, or a
+    file whose numbers would take more than a quarter of the memory budget (an in-memory
+    scan holds about four copies)."""
+    from foldsift.stats.stream import (
+        environment_budget,
+        estimated_bytes,
+        is_parquet_source,
+        parquet_files,
+    )
+
+    path = options.data_path
+    if options.settings.pair_by is not None or not is_parquet_source(path):
+        return False
+    if path.is_dir() or not path.exists():
+        return True
+    _, _, size = estimated_bytes(parquet_files(path))
+    return size * 4 > environment_budget()
+
+
 def scan(options: SessionOptions, progress: Callable[[str], None] | None = None) -> ScanResult:
     """Load the data and compute every comparison (a raw table or a summary table);
     ``progress`` hears each stage as it starts."""
@@ -93,6 +113,12 @@ def scan(options: SessionOptions, progress: Callable[[str], None] | None = None)
             )
         return scan_summary_table(options.data_path, options.settings)
     settings = options.settings
+    if _streamed(options):
+        from foldsift.stats.stream import scan_parquet
+
+        return scan_parquet(
+            options.data_path, settings, options.groupings, options.outcomes, progress
+        )
     design = [c for c in (settings.pair_by, settings.period, settings.sequence) if c]
     table = load_table(
         options.data_path,
