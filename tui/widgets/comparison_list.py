@@ -129,7 +129,7 @@ COLUMNS: tuple[Column, ...] = (
     Column("q", 7, col.Q_BH, lambda r: p_text(r["q_bh"]), right=True),
     Column("p", 7, col.P_VALUE, lambda r: p_text(r["p_value"]), right=True),
     Column("warn", 4, col.WARNING_COUNT, _warnings, right=True),
-    Column("n b/a", 7, col.N_MIN, lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
+    Column("n b/a", 11, col.N_MIN, lambda r: f"{r['n_b']}/{r['n_a']}", right=True),
     Column("grouping", 12, col.GROUPING, _grouping),
     # Sorted on the size of the change either way (|log ratio|), so 0.25× ranks beside 4×.
     Column("change", 6, col.CHANGE_SIZE, lambda r: percent_text(r["percent_change"]), right=True),

@@ -129,6 +129,13 @@ class Charts(Static):
             self.update("", layout=False)
             return
         values_a, values_b = self._values_of(row)
+        if not (values_a.size or values_b.size) and (row["n_a"] or row["n_b"]):
+            # A summary table, or Parquet data read a batch at a time: no values in memory.
+            self.update(
+                Text("no charts: this scan keeps no group's values in memory", style="italic"),
+                layout=False,
+            )
+            return
         limits_a, limits_b = self._limits_of(row) if self._limits_of else (np.empty(0),) * 2
         a = _group(row, "a", values_a, limits_a)
         b = _group(row, "b", values_b, limits_b)
