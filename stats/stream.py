@@ -190,6 +190,25 @@ def scan_parquet(
     bytes (default ``environment_budget()``). The same numbers as an in-memory scan."""
     tell = say or (lambda stage: None)
     files = parquet_files(data)
+    try:
+        return _scan_files(data, files, settings, groupings, outcomes, tell, budget)
+    except pl.exceptions.PolarsError as error:
+        raise InputError(
+            f"{data}: cannot be read as Parquet ({type(error).__name__}); check that every "
+            "part file is complete"
+        ) from None
+
+
+def _scan_files(
+    data: Path | str,
+    files: Sequence[Path],
+    settings: ScanSettings,
+    groupings: Sequence[str] | None,
+    outcomes: Sequence[str] | None,
+    tell: Say,
+    budget: int | None,
+) -> ScanResult:
+    """``scan_parquet`` once the files are found."""
     if settings.pair_by is not None:
         raise InputError(f"{data}: --pair-by needs the data in memory; it cannot be streamed")
     chosen_groups, chosen_outcomes = roles(files, groupings, outcomes)

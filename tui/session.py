@@ -95,7 +95,10 @@ def _streamed(options: SessionOptions) -> bool:
         return False
     if path.is_dir() or not path.exists():
         return True
-    _, _, size = estimated_bytes(parquet_files(path))
+    try:
+        _, _, size = estimated_bytes(parquet_files(path))
+    except Exception:  # a damaged file: the ordinary reader says what is wrong in one line
+        return False
     return size * 4 > environment_budget()
 
 
