@@ -44,7 +44,7 @@ from .censored import (
 from .entries import ABOVE
 from .load import DerivedNames
 from .policy import ValuePolicy
-from .summaries import GROUP_COLUMNS
+from .summaries import GROUP_COLUMNS, group_identity
 from .values import GroupId, GroupSpec
 
 FloatArray = npt.NDArray[np.float64]
@@ -194,16 +194,6 @@ def _aggregations(name: str, names: DerivedNames) -> list[pl.Expr]:
     return [expr.alias(names.derived(name, f"cg_{stat}")) for stat, expr in figures.items()]
 
 
-def _identity(spec: GroupSpec) -> list[pl.Expr]:
-    stratum = pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)
-    return [
-        pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
-        pl.lit(spec.within, pl.Utf8).alias("within"),
-        stratum.alias("stratum"),
-        pl.col(spec.grouping).cast(pl.Utf8).alias("level"),
-    ]
-
-
 def _spec_groups(
     frame: pl.DataFrame,
     spec: GroupSpec,
@@ -236,7 +226,7 @@ def _spec_groups(
             .with_columns(pl.lit(name, pl.Utf8).alias("outcome"))
         )
     wide, *censored = pl.collect_all(plans)
-    identity = _identity(spec)
+    identity = group_identity(spec)
     long = pl.concat(
         [
             wide.select(

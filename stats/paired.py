@@ -81,7 +81,7 @@ from .errors import InputError
 from .load import DerivedNames
 from .precision import DEFAULT_POWER, _bisect, _power
 from .summaries import level_order, mean_and_sum_of_squares
-from .ttest import LogTTest
+from .ttest import LogTTest, t_result
 from .values import GroupSpec
 
 Array = npt.NDArray[np.float64]
@@ -490,23 +490,7 @@ def paired_t(
     n, mean, ss = (np.asarray(x, dtype=float) for x in (n_pairs, mean_d, ss_d))
     with np.errstate(divide="ignore", invalid="ignore"):
         se = np.sqrt(ss / (n - 1) / n)
-        valid = (n >= 2) & (se > 0) & np.isfinite(se) & np.isfinite(mean)
-        se = np.where(valid, se, np.nan)
-        df = np.where(valid, n - 1, np.nan)
-        difference = np.where(valid, mean, np.nan)
-        t = difference / se
-        p_value = 2 * t_sf(np.abs(t), df)
-        t_critical = t_ppf(0.5 + confidence / 2, df)
-    return LogTTest(
-        difference=difference,
-        standard_error=se,
-        df=df,
-        t=t,
-        p_value=p_value,
-        t_critical=t_critical,
-        ci_low=difference - t_critical * se,
-        ci_high=difference + t_critical * se,
-    )
+    return t_result(mean, se, n - 1, confidence, (n >= 2) & np.isfinite(mean))
 
 
 def within_unit_cv(sd_d: npt.ArrayLike) -> Array:
@@ -946,24 +930,7 @@ def _crossover_test(
         usable = (n1 >= 1) & (n2 >= 1) & (df >= 1)
         mse = np.where(usable, (ss1 + ss2) / df / 2, np.nan)
         se = np.sqrt(mse / 2 * (1 / n1 + 1 / n2))
-        valid = usable & (se > 0) & np.isfinite(se)
-        se = np.where(valid, se, np.nan)
-        df = np.where(valid, df, np.nan)
-        difference = np.where(valid, (m1 + m2) / 2, np.nan)
-        t = difference / se
-        p_value = 2 * t_sf(np.abs(t), df)
-        critical = t_ppf(0.5 + confidence / 2, df)
-    test = LogTTest(
-        difference=difference,
-        standard_error=se,
-        df=df,
-        t=t,
-        p_value=p_value,
-        t_critical=critical,
-        ci_low=difference - critical * se,
-        ci_high=difference + critical * se,
-    )
-    return test, mse
+    return t_result((m1 + m2) / 2, se, df, confidence, usable), mse
 
 
 def crossover_2x2(

@@ -270,12 +270,12 @@ def check_within(table: Table, within: str | None) -> None:
         )
 
 
-def _level_sets(table: Table, specs: list[GroupSpec]) -> pl.DataFrame:
+def level_sets(frame: pl.DataFrame, specs: Sequence[GroupSpec]) -> pl.DataFrame:
     """The count of levels of each set compared (a grouping, or a grouping within one
-    stratum), from the table before any summary is computed."""
+    stratum), from the grouping columns before any summary is computed."""
     parts = []
     for spec in specs:
-        present = table.frame.select(spec.keys).drop_nulls()
+        present = frame.select(spec.keys).drop_nulls()
         if spec.within is None:
             levels = present.select(pl.col(spec.grouping).n_unique().alias("levels"))
         else:
@@ -309,7 +309,9 @@ def run_scan(
     say = progress or _silent
     check_within(table, settings.within)
     specs: list[GroupSpec] = group_specs(table.groupings, settings.within)
-    check_comparison_count(_level_sets(table, specs), len(table.outcomes), settings, table.name)
+    check_comparison_count(
+        level_sets(table.frame, specs), len(table.outcomes), settings, table.name
+    )
     part = summarise(table, specs, settings.policy, say)
     used, values, entries, summaries = part.used, part.values, part.entries, part.summaries
     completed = complete_summaries(summaries)

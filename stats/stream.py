@@ -39,9 +39,10 @@ from .scan import (
     check_comparison_count,
     compare_summaries,
     complete_summaries,
+    level_sets,
     summarise,
 )
-from .values import GroupSpec, group_specs
+from .values import group_specs
 
 #: Copies of one column alive while it is summarised (read, typed, used, logs, sorting).
 WORKING_COPIES = 6
@@ -222,7 +223,7 @@ def _scan_files(
         pl.when(~missing_of(text_of(name))).then(text_of(name)).alias(name)
         for name in chosen_groups
     )
-    sets = _level_sets(levels, specs)
+    sets = level_sets(levels, specs)
     check_comparison_count(sets, len(chosen_outcomes), settings, str(data))
     parts: list[pl.DataFrame] = []
     units: dict[str, str] = {}
@@ -279,22 +280,3 @@ def _batch_table(
         names=names,
         units={name: unit for name in batch if (unit := unit_from_name(name))},
     )
-
-
-def _level_sets(levels: pl.DataFrame, specs: Sequence[GroupSpec]) -> pl.DataFrame:
-    """The count of levels of each set compared (a grouping, or one within each stratum)."""
-    parts = []
-    for spec in specs:
-        present = levels.select(spec.keys).drop_nulls()
-        if spec.within is None:
-            counted = present.select(pl.col(spec.grouping).n_unique().alias("levels"))
-        else:
-            counted = present.group_by(spec.within).agg(
-                pl.col(spec.grouping).n_unique().alias("levels")
-            )
-        parts.append(
-            counted.select(pl.lit(spec.grouping).alias("grouping"), pl.col("levels").cast(pl.Int64))
-        )
-    if not parts:
-        return pl.DataFrame(schema={"grouping": pl.Utf8, "levels": pl.Int64})
-    return pl.concat(parts)

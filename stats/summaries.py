@@ -102,7 +102,8 @@ def _stat(outcome: str, stat: str, names: DerivedNames, coded: bool) -> pl.Expr:
     return pl.col(names.derived(outcome, stat)).alias(stat)
 
 
-def _identity(spec: GroupSpec) -> list[pl.Expr]:
+def group_identity(spec: GroupSpec) -> list[pl.Expr]:
+    """The columns that name a group (grouping, within, stratum, level) as expressions."""
     stratum = pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)
     return [
         pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
@@ -138,7 +139,7 @@ def group_summaries(
             for spec in specs
         ]
         for spec, wide in zip(specs, pl.collect_all(plans), strict=True):
-            identity = _identity(spec)
+            identity = group_identity(spec)
             for outcome in batch:
                 parts.append(
                     wide.select(

@@ -82,6 +82,21 @@ def log_t_test(
             pooled = (ss_a + ss_b) / df
             se2 = pooled * (1 / n_a + 1 / n_b)
         se = np.sqrt(se2)
+    return t_result(difference, se, df, confidence, usable)
+
+
+def t_result(
+    difference: np.ndarray,
+    standard_error: np.ndarray,
+    df: np.ndarray | float,
+    confidence: float,
+    usable: np.ndarray | bool = True,
+) -> LogTTest:
+    """The t, two-sided p and CI of a difference of mean logs from its standard error and
+    Student's t with ``df``; NaN where a row is not ``usable`` or its SE is not positive and
+    finite. The one place every test on the logs (two-sample, paired, crossover) ends."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        se = np.asarray(standard_error, dtype=float)
         valid = usable & (se > 0) & np.isfinite(se)
         se = np.where(valid, se, np.nan)
         df = np.where(valid, df, np.nan)
