@@ -14,7 +14,7 @@ import polars as pl
 from .columns import P_VALUE, side
 from .distributions import f_cdf
 from .shapiro import shapiro_wilk
-from .values import GroupValues
+from .values import GroupId, GroupValues
 from .vocabulary import WARNING_NAMES, WarningName
 
 Array = npt.NDArray[np.float64]
@@ -123,13 +123,26 @@ SYMMETRY_WARNINGS: tuple[WarningName, ...] = (
 )
 
 
-def group_normality(values: GroupValues) -> pl.DataFrame:
+#: The columns that name one group (as in the summaries).
+GROUP_KEYS = ("grouping", "within", "stratum", "level", "outcome")
+
+
+def group_normality(values: GroupValues, sizes: pl.DataFrame | None = None) -> pl.DataFrame:
     """Shapiro–Wilk W and p on the logs of each group (n 3..5000), one row per group.
 
     One call per group, not per comparison. Outside the range, or with no spread, the
-    result is NaN."""
+    result is NaN. ``sizes`` (the summaries: the group columns and ``n``) lets the groups
+    outside the range be answered without reading their values."""
+    wanted: set[GroupId] | None = None
     rows: list[tuple[str, str | None, str | None, str, str, float, float]] = []
-    for group, group_values in values.each_group():
+    if sizes is not None:
+        low, high = SHAPIRO_RANGE
+        inside = pl.col("n").is_between(low, high)
+        keys = list(GROUP_KEYS)
+        wanted = {tuple(row) for row in sizes.filter(inside).select(keys).iter_rows()}
+        outside = sizes.filter(~inside.fill_null(False)).select(keys).iter_rows()
+        rows += [(*group, math.nan, math.nan) for group in outside]
+    for group, group_values in values.each_group(wanted=wanted):
         w = p = math.nan
         if SHAPIRO_RANGE[0] <= group_values.size <= SHAPIRO_RANGE[1]:
             logs = np.log(group_values)

@@ -493,6 +493,7 @@ def _typed(
         text = text_of(name)
         columns.append(pl.when(~missing_of(text)).then(text).alias(name))
     series: list[pl.Series] = []
+    finite = _all_finite(raw, [name for name in outcomes if name not in parsed])
     for name in outcomes:
         column = parsed.get(name)
         if column is not None:
@@ -502,7 +503,12 @@ def _typed(
                 series.append(column.kind.alias(names.kind(name)))
             continue
         value = pl.col(name).cast(pl.Float64)
-        columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
+        if name in finite:
+            # Every value is a finite number already: a Float64 column is taken as it is
+            # (no copy of the table's largest part).
+            columns.append(value.alias(name))
+        else:
+            columns.append(pl.when(value.is_finite()).then(value).otherwise(None).alias(name))
         columns.append(pl.lit(False).alias(names.censored(name)))
     typed = raw.select(columns).hstack(series)
     typed_columns = set(typed.columns)
@@ -513,6 +519,17 @@ def _typed(
         if c in typed_columns
     ]
     return typed.select(*groupings, *order)
+
+
+def _all_finite(raw: pl.DataFrame, outcomes: list[str]) -> set[str]:
+    """The typed outcome columns without NaN or infinite values (one pass over them)."""
+    if not outcomes:
+        return set()
+    row = raw.select(
+        pl.col(name).cast(pl.Float64).is_finite().fill_null(True).all().alias(name)
+        for name in outcomes
+    ).row(0, named=True)
+    return {name for name in outcomes if row[name]}
 
 
 def _check_values(

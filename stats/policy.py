@@ -54,7 +54,8 @@ def apply_policy(
     frame: pl.DataFrame, outcomes: tuple[str, ...], policy: ValuePolicy, names: DerivedNames
 ) -> pl.DataFrame:
     """Add the used value, an excluded flag and a substituted flag for each outcome
-    (``names.used``, ``names.excluded``, ``names.substituted``).
+    (``names.used``, ``names.excluded``, ``names.substituted``); an outcome with nothing to
+    leave out or replace gets only its used value (the column itself, not a copy).
 
     The used value is the strictly positive value that goes to the log scale (null when the
     entry is missing, left out, or fitted as censored). Under ``mle`` a below-detection entry
@@ -66,12 +67,9 @@ def apply_policy(
     exprs: list[pl.Expr] = []
     for name in outcomes:
         if name in clean:
-            # Nothing to leave out or replace: the values themselves (no copy is made).
-            exprs += [
-                pl.col(name).alias(names.used(name)),
-                pl.repeat(False, pl.len()).alias(names.excluded(name)),
-                pl.repeat(False, pl.len()).alias(names.substituted(name)),
-            ]
+            # Nothing to leave out or replace: the values themselves (no copy is made), and
+            # no excluded or substituted flags (``summaries`` counts 0 where they are absent).
+            exprs.append(pl.col(name).alias(names.used(name)))
         else:
             exprs += _policy_columns(name, policy, names, names.kind(name) in frame.columns)
     return frame.with_columns(exprs)

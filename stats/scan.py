@@ -362,12 +362,9 @@ def summarise(
     entries = GroupEntries(used, specs, table.outcomes, table.names, policy)
     summaries = group_summaries(used, specs, table.outcomes, table.names)
     say(f"checking the logs of {summaries.height:,} groups")
-    normality = diagnostics.group_normality(values)
+    normality = diagnostics.group_normality(values, summaries)
     summaries = summaries.join(
-        normality,
-        on=["grouping", "within", "stratum", "level", "outcome"],
-        how="left",
-        nulls_equal=True,
+        normality, on=list(diagnostics.GROUP_KEYS), how="left", nulls_equal=True
     )
     if entries.outcomes:
         say(f"fitting the below-detection entries of {len(entries.outcomes)} outcome(s)")

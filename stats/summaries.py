@@ -44,7 +44,7 @@ SUMMARY_SCHEMA = pl.Schema(
 _STATS = [name for name in SUMMARY_SCHEMA if name not in GROUP_COLUMNS]
 #: Outcomes aggregated together: the working memory of a batch (its logs and the per-group
 #: sorting for medians) is what the summaries add to the table's own.
-OUTCOME_BATCH = 16
+OUTCOME_BATCH = 4
 
 
 def mean_and_sum_of_squares(values: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
@@ -56,20 +56,35 @@ def mean_and_sum_of_squares(values: pl.Expr) -> tuple[pl.Expr, pl.Expr]:
     return mean, (values - mean).pow(2).sum()
 
 
-def _aggregations(outcome: str, names: DerivedNames, coded: bool) -> list[pl.Expr]:
+def _rows(names: DerivedNames) -> str:
+    """The name of each group's row count in the aggregated frame (it holds the marker, so no
+    user column has it)."""
+    return names.derived("", "rows")
+
+
+def _aggregations(outcome: str, names: DerivedNames, coded: bool, flagged: bool) -> list[pl.Expr]:
+    """The figures of one outcome per group. ``flagged``: the policy marked some entries as
+    left out or replaced (else ``apply_policy`` made no flags, every written value is used,
+    and the missing entries are the group's rows less its values)."""
     used = pl.col(names.used(outcome))
     logs = pl.col(names.log(outcome))
     mean_log, ss_log = mean_and_sum_of_squares(logs)
     stat = names.derived
+    counts = [used.count().cast(pl.Int64).alias(stat(outcome, "n"))]
+    if flagged:
+        counts += [
+            pl.col(outcome).null_count().cast(pl.Int64).alias(stat(outcome, "n_missing")),
+            *(
+                pl.col(flag(outcome)).sum().cast(pl.Int64).alias(stat(outcome, name))
+                for flag, name in (
+                    (names.excluded, "n_excluded"),
+                    (names.substituted, "n_substituted"),
+                    (names.censored, "n_censored"),
+                )
+            ),
+        ]
     return [
-        used.count().cast(pl.Int64).alias(stat(outcome, "n")),
-        pl.col(outcome).null_count().cast(pl.Int64).alias(stat(outcome, "n_missing")),
-        pl.col(names.excluded(outcome)).sum().cast(pl.Int64).alias(stat(outcome, "n_excluded")),
-        pl.col(names.substituted(outcome))
-        .sum()
-        .cast(pl.Int64)
-        .alias(stat(outcome, "n_substituted")),
-        pl.col(names.censored(outcome)).sum().cast(pl.Int64).alias(stat(outcome, "n_censored")),
+        *counts,
         *(_kind_counts(outcome, names) if coded else []),
         mean_log.alias(stat(outcome, "mean_log")),
         ss_log.alias(stat(outcome, "ss_log")),
@@ -94,12 +109,20 @@ def _kind_counts(outcome: str, names: DerivedNames) -> list[pl.Expr]:
     ]
 
 
-def _stat(outcome: str, stat: str, names: DerivedNames, coded: bool) -> pl.Expr:
+def _stat(outcome: str, stat: str, names: DerivedNames, coded: bool, flagged: bool) -> pl.Expr:
     """One figure of one outcome from the aggregated frame (counts of kinds an outcome
-    cannot hold are 0)."""
+    cannot hold are 0; without policy flags nothing was left out, replaced or censored)."""
     if stat in _KIND_STATS and not coded:
         return pl.lit(0, pl.Int64).alias(stat)
+    if not flagged and stat in _FLAG_STATS:
+        return pl.lit(0, pl.Int64).alias(stat)
+    if not flagged and stat == "n_missing":
+        n = pl.col(names.derived(outcome, "n"))
+        return (pl.col(_rows(names)).cast(pl.Int64) - n).alias(stat)
     return pl.col(names.derived(outcome, stat)).alias(stat)
+
+
+_FLAG_STATS = ("n_excluded", "n_substituted", "n_censored")
 
 
 def group_identity(spec: GroupSpec) -> list[pl.Expr]:
@@ -122,13 +145,16 @@ def group_summaries(
     """One row per grouping × stratum × level × outcome (rows whose group or stratum is
     missing are left out)."""
     coded = {o for o in outcomes if names.kind(o) in frame.columns}
+    flagged = {o for o in outcomes if names.excluded(o) in frame.columns}
     parts: list[pl.DataFrame] = []
     # Outcomes in batches: the logs and the per-group sorting behind the medians are made for
     # one batch at a time, so the memory they take is a batch's, not the table's.
     for start in range(0, len(outcomes), OUTCOME_BATCH):
         batch = list(outcomes[start : start + OUTCOME_BATCH])
-        aggregations = [
-            expr for outcome in batch for expr in _aggregations(outcome, names, outcome in coded)
+        aggregations = [pl.len().alias(_rows(names))] + [
+            expr
+            for outcome in batch
+            for expr in _aggregations(outcome, names, outcome in coded, outcome in flagged)
         ]
         plans = [
             frame.lazy()
@@ -141,12 +167,12 @@ def group_summaries(
         for spec, wide in zip(specs, pl.collect_all(plans), strict=True):
             identity = group_identity(spec)
             for outcome in batch:
+                figures = [
+                    _stat(outcome, stat, names, outcome in coded, outcome in flagged)
+                    for stat in _STATS
+                ]
                 parts.append(
-                    wide.select(
-                        *identity,
-                        pl.lit(outcome, pl.Utf8).alias("outcome"),
-                        *[_stat(outcome, stat, names, outcome in coded) for stat in _STATS],
-                    )
+                    wide.select(*identity, pl.lit(outcome, pl.Utf8).alias("outcome"), *figures)
                 )
     if not parts:
         return pl.DataFrame(schema=SUMMARY_SCHEMA)

@@ -33,6 +33,7 @@ import codecs
 import csv
 import hashlib
 import io
+import os
 import re
 import stat
 import threading
@@ -316,9 +317,27 @@ def _read_text(path: Path, data: bytes, encoding: str | None) -> RawTable:
     return RawTable(frame, "", separator, tuple(notes))
 
 
-def _read_parquet(path: Path, data: bytes) -> RawTable:
+#: Columns of a Parquet file read at a time: polars' reader holds about twice a batch while
+#: it decodes, so reading a batch at a time keeps its working memory a batch's.
+_PARQUET_BATCH = 16
+
+
+def _parquet_frame(source: Path | bytes) -> pl.DataFrame:
+    if isinstance(source, bytes):
+        return pl.read_parquet(io.BytesIO(source))
+    width = len(pl.read_parquet_schema(source))
+    if width <= _PARQUET_BATCH:
+        return pl.read_parquet(source)
+    parts = [
+        pl.read_parquet(source, columns=list(range(start, min(start + _PARQUET_BATCH, width))))
+        for start in range(0, width, _PARQUET_BATCH)
+    ]
+    return pl.concat(parts, how="horizontal")
+
+
+def _read_parquet(path: Path, source: Path | bytes) -> RawTable:
     try:
-        frame = pl.read_parquet(io.BytesIO(data))
+        frame = _parquet_frame(source)
     except Exception as error:  # polars raises several error types for bad files
         raise InputError(
             f"{path}: cannot be read as Parquet ({type(error).__name__}); "
@@ -329,9 +348,91 @@ def _read_parquet(path: Path, data: bytes) -> RawTable:
     return RawTable(frame, "", None, tuple(item.note() for item in renamed))
 
 
+#: Bytes hashed at a time when a file is fingerprinted beside its reading.
+_HASH_CHUNK = 1 << 20
+
+
+def _file_digest(path: Path) -> str:
+    """SHA-256 of a file read a chunk at a time (the memory it takes is one chunk's)."""
+    digest = hashlib.sha256()
+    with path.open("rb") as handle:
+        while chunk := handle.read(_HASH_CHUNK):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def _parquet_file(path: Path) -> bool:
+    """A regular file that is Parquet by its name, or by the magic bytes PAR1 at its start
+    and end (Apache Parquet format)."""
+    try:
+        if not stat.S_ISREG(path.stat().st_mode):
+            return False
+        if path.suffix.lower() in _PARQUET_SUFFIXES:
+            return True
+        with path.open("rb") as handle:
+            head = handle.read(4)
+            handle.seek(-4, io.SEEK_END)
+            return head == b"PAR1" and handle.read(4) == b"PAR1"
+    except OSError:
+        return False  # read_bytes gives the message
+
+
+def _read_parquet_file(path: Path) -> RawTable:
+    """A Parquet file read by polars from its path (no copy of its bytes in memory), its
+    fingerprint taken a chunk at a time in a thread meanwhile (hashlib and polars release the
+    interpreter lock). A file that changes during the reading is refused."""
+    try:
+        with path.open("rb") as handle:
+            _check_head(path, handle.read(_HEAD_BYTES), None)
+        before = path.stat()
+    except OSError as error:
+        raise _open_error(path, error) from None
+    digest: list[str] = []
+    failed: list[OSError] = []
+
+    def fingerprint() -> None:
+        try:
+            digest.append(_file_digest(path))
+        except OSError as error:
+            failed.append(error)
+
+    hasher = threading.Thread(target=fingerprint)
+    hasher.start()
+    try:
+        table = _read_parquet(path, path)
+    finally:
+        hasher.join()
+        _check_unchanged(path, before)
+    if failed:
+        raise _open_error(path, failed[0])
+    return RawTable(table.frame, digest[0], None, table.notes)
+
+
+def _check_unchanged(path: Path, before: os.stat_result) -> None:
+    """Refuse a file whose size or modification time changed since ``before`` (this message
+    wins over a reading error the change may have caused)."""
+    try:
+        after = path.stat()
+    except OSError as error:
+        raise _open_error(path, error) from None
+    if (before.st_size, before.st_mtime_ns) != (after.st_size, after.st_mtime_ns):
+        raise InputError(
+            f"{path}: changed while it was being read; read it again once it is complete"
+        )
+
+
 def read_table_file(path: Path, encoding: str | None = None) -> RawTable:
     """Read a CSV/TSV/Parquet file once: the raw frame (text files as strings, so censored
     entries survive), the fingerprint of its bytes, its separator and the reader's notes."""
+    parquet = _parquet_file(path)
+    table = _read_parquet_file(path) if parquet else _read_bytes_file(path, encoding)
+    if table.frame.height == 0:
+        raise InputError(f"{path}: has a header but no data rows; nothing to compare")
+    return table
+
+
+def _read_bytes_file(path: Path, encoding: str | None) -> RawTable:
+    """A text file (or a stream) read into memory once, hashed while it is parsed."""
     data = read_bytes(path, encoding)
     # The fingerprint is taken while the bytes are parsed: hashlib and polars both release
     # the interpreter lock, so on two cores the hash costs no extra time.
@@ -339,15 +440,10 @@ def read_table_file(path: Path, encoding: str | None = None) -> RawTable:
     hasher = threading.Thread(target=lambda: digest.append(hashlib.sha256(data).hexdigest()))
     hasher.start()
     try:
-        # A Parquet file starts and ends with the magic bytes PAR1 (Apache Parquet format).
-        if path.suffix.lower() in _PARQUET_SUFFIXES or (
-            data.startswith(b"PAR1") and data.endswith(b"PAR1")
-        ):
+        if data.startswith(b"PAR1") and data.endswith(b"PAR1"):
             table = _read_parquet(path, data)
         else:
             table = _read_text(path, data, encoding)
     finally:
         hasher.join()
-    if table.frame.height == 0:
-        raise InputError(f"{path}: has a header but no data rows; nothing to compare")
     return RawTable(table.frame, digest[0], table.separator, table.notes)

@@ -8,7 +8,7 @@ cross-checks; the table is split once per grouping and the parts are kept.
 from __future__ import annotations
 
 import threading
-from collections.abc import Iterator, Sequence
+from collections.abc import Collection, Iterator, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -98,12 +98,19 @@ class GroupValues:
                     values = part[self._names.used(outcome)].drop_nulls().to_numpy()
                     yield (spec.grouping, spec.within, stratum, level, outcome), values
 
-    def each_group(self, batch: int = 16) -> Iterator[tuple[GroupId, np.ndarray]]:
+    def each_group(
+        self, batch: int = 16, wanted: Collection[GroupId] | None = None
+    ) -> Iterator[tuple[GroupId, np.ndarray]]:
         """Every group with its values, like ``groups`` but a batch of outcomes at a time and
-        without keeping the split table: the memory it takes is one batch's."""
+        without keeping the split table: the memory it takes is one batch's. ``wanted``: only
+        these groups (a batch of outcomes none of whose groups is wanted is not split)."""
         for spec in self._specs:
-            for start in range(0, len(self._outcomes), batch):
-                chosen = self._outcomes[start : start + batch]
+            outcomes = self._outcomes
+            if wanted is not None:
+                needed = {g[4] for g in wanted if g[0] == spec.grouping and g[1] == spec.within}
+                outcomes = tuple(o for o in outcomes if o in needed)
+            for start in range(0, len(outcomes), batch):
+                chosen = outcomes[start : start + batch]
                 columns = [self._names.used(o) for o in chosen]
                 frame = self._used.select(*spec.keys, *columns).drop_nulls(spec.keys)
                 parts = frame.partition_by(spec.keys, as_dict=True, include_key=False)
@@ -113,4 +120,5 @@ class GroupValues:
                     )
                     for outcome, column in zip(chosen, columns, strict=True):
                         group = (spec.grouping, spec.within, stratum, level, outcome)
-                        yield group, part[column].drop_nulls().to_numpy()
+                        if wanted is None or group in wanted:
+                            yield group, part[column].drop_nulls().to_numpy()

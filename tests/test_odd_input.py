@@ -36,10 +36,11 @@ import os
 import threading
 from pathlib import Path
 
+import numpy as np
 import polars as pl
 import pytest
 
-from foldsift.stats import load
+from foldsift.stats import load, textfile
 from foldsift.stats.load import InputError
 from foldsift.stats.scan import ScanSettings, run_scan
 from foldsift.tui.cli import main
@@ -488,6 +489,43 @@ def test_the_fingerprint_is_of_the_bytes_read(tmp_path):
     content = codecs.BOM_UTF8 + b"site,lead\na,1.5\na,2.5\nb,3.5\nb,4.5\n"
     path = _file(tmp_path, "d.csv", content)
     assert load.load_table(path).fingerprint == hashlib.sha256(content).hexdigest()
+
+
+def test_a_wide_parquet_file_is_read_in_column_batches_with_its_fingerprint(tmp_path):
+    """A Parquet file wider than one reading batch gives the same frame as polars' own
+    whole-file reading, and the SHA-256 of its bytes (hashlib over the file as stored)."""
+    rng = np.random.default_rng(7)
+    frame = pl.DataFrame(
+        {"site": ["a", "b"] * 50}
+        | {
+            f"y{j:02d}": np.exp(rng.normal(size=100))
+            for j in range(textfile._PARQUET_BATCH * 2 + 3)
+        }
+    )
+    path = tmp_path / "wide.parquet"
+    frame.write_parquet(path, row_group_size=30)
+    table = textfile.read_table_file(path)
+    assert table.frame.equals(pl.read_parquet(path))
+    assert table.fingerprint == hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_a_parquet_file_that_changes_while_read_is_refused(tmp_path, monkeypatch):
+    """The fingerprint is taken beside the reading; a file rewritten meanwhile would pair the
+    figures of one content with the fingerprint of another, so it is refused in one line."""
+    path = tmp_path / "moving.parquet"
+    pl.DataFrame({"site": list("aabb"), "lead": [1.5, 2.5, 3.5, 4.5]}).write_parquet(path)
+    digest = textfile._file_digest
+
+    def rewritten(target):
+        result = digest(target)
+        pl.DataFrame({"site": list("aabbb"), "lead": [1.5, 2.5, 3.5, 4.5, 5.5]}).write_parquet(
+            target
+        )
+        return result
+
+    monkeypatch.setattr(textfile, "_file_digest", rewritten)
+    with pytest.raises(load.InputError, match="changed while it was being read"):
+        textfile.read_table_file(path)
 
 
 # -- 8. Parquet list and struct columns ---------------------------------------------------
