@@ -103,8 +103,17 @@ def paired_rows(
     units (``paired.groupings_within_units``)."""
     paired_groupings = set(groupings_within_units(used, unit, table.groupings))
     chosen = [spec for spec in specs if spec.grouping in paired_groupings]
+    others = [spec for spec in specs if spec.grouping not in paired_groupings]
+    repeated = repeated_unit_rows(
+        used,
+        others,
+        level_pairs.filter(pl.col("grouping").is_in([s.grouping for s in others])),
+        unit,
+        table.outcomes,
+        [table.names.used(o) for o in table.outcomes],
+    )
     if not chosen:
-        return pl.DataFrame(schema=DESIGN_SCHEMA)
+        return repeated
     outcomes = policy_outcomes(used, table.outcomes, table.names)
     pairs = level_pairs.filter(pl.col("grouping").is_in([s.grouping for s in chosen]))
     summaries = paired_summaries(
@@ -120,7 +129,75 @@ def paired_rows(
     counted = figures.with_columns(
         pl.col("outcome").replace_strict(censored, return_dtype=pl.Int64).alias("n_censored_pairs")
     )
-    return counted.select(_paired_columns(unit, policy)).cast(DESIGN_SCHEMA)
+    paired = counted.select(_paired_columns(unit, policy)).cast(DESIGN_SCHEMA)
+    return pl.concat([paired, repeated]) if repeated.height else paired
+
+
+def repeated_unit_rows(
+    used: pl.DataFrame,
+    specs: Sequence[GroupSpec],
+    level_pairs: pl.DataFrame,
+    unit: str,
+    outcomes: Sequence[str],
+    used_names: Sequence[str],
+) -> pl.DataFrame:
+    """Design rows carrying only the warning ``units-repeated`` for the comparisons of the
+    groupings whose levels are not measured on the same units (so they stay independent-groups
+    comparisons) where some unit gives two or more values in one of the two groups: those
+    values are not independent, and the t-test counts each as a separate unit. One pass per
+    grouping: the largest count of values per unit in each group, per outcome."""
+    flagged = []
+    columns = [
+        pl.col(name).count().alias(outcome)
+        for outcome, name in zip(outcomes, used_names, strict=True)
+    ]
+    for spec in specs:
+        counts = (
+            used.lazy()
+            .drop_nulls([*spec.keys, unit])
+            .group_by(*spec.keys, unit)
+            .agg(columns)
+            .group_by(spec.keys)
+            .agg(pl.col(list(outcomes)).max())
+            .unpivot(index=spec.keys, variable_name="outcome", value_name="most")
+            .filter(pl.col("most") > 1)
+            .select(
+                pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
+                pl.lit(spec.within, pl.Utf8).alias("within"),
+                (pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)).alias(
+                    "stratum"
+                ),
+                pl.col(spec.grouping).cast(pl.Utf8).alias("level"),
+                "outcome",
+            )
+        )
+        flagged.append(counts)
+    if not flagged:
+        return pl.DataFrame(schema=DESIGN_SCHEMA)
+    groups = pl.concat(pl.collect_all(flagged))
+    keys = ["grouping", "within", "stratum", "outcome"]
+    pairs = level_pairs.lazy().join(
+        groups.lazy().select(keys).unique(), on=[*keys[:3]], how="inner", nulls_equal=True
+    )
+    on_a = groups.lazy().rename({"level": "level_a"}).with_columns(pl.lit(True).alias("a"))
+    on_b = groups.lazy().rename({"level": "level_b"}).with_columns(pl.lit(True).alias("b"))
+    rows = (
+        pairs.join(on_a, on=[*keys, "level_a"], how="left", nulls_equal=True)
+        .join(on_b, on=[*keys, "level_b"], how="left", nulls_equal=True)
+        .filter(pl.col("a").fill_null(False) | pl.col("b").fill_null(False))
+        .select(*keys, "level_a", "level_b")
+        .collect()
+    )
+    return (
+        rows.with_columns(
+            pl.lit(None).alias(name)
+            for name in DESIGN_SCHEMA
+            if name not in rows.columns and name != "design_warnings"
+        )
+        .with_columns(pl.lit(["units-repeated"]).alias("design_warnings"))
+        .select(list(DESIGN_SCHEMA))
+        .cast(DESIGN_SCHEMA)
+    )
 
 
 def _paired_columns(unit: str, policy: ValuePolicy) -> list[pl.Expr | str]:

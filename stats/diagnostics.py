@@ -112,6 +112,12 @@ WARNINGS: dict[WarningName, str] = {
         f"{INFLUENCE_SHIFT:g} SE, and that unit is an outlier (studentized residual, "
         f"Bonferroni p < {OUTLIER_ALPHA:g})"
     ),
+    "units-repeated": (
+        "with --pair-by, some unit gives several values to one group of this comparison (the "
+        "units are nested in its levels, e.g. measured in several years): the t-test counts "
+        "each value as an independent unit, so the CI is too narrow and p too small; compare "
+        "within the grouping that repeats the units, or give one value per unit"
+    ),
 }
 
 #: Warnings that make "ratio of medians" doubtful: the finding then speaks of geometric means.

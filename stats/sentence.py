@@ -270,6 +270,10 @@ def _units_apart(row: _Figures) -> str:
 #: Warnings in the order of how much they weigh on the stated ratio, the largest first, with
 #: the phrase that says each in words.
 CAVEAT_ORDER: dict[WarningName, Callable[[_Figures], str]] = {
+    "units-repeated": lambda row: (
+        "some units give several values to one group and are counted as independent, so "
+        "the interval is too narrow"
+    ),
     "censoring-sensitive": lambda row: _substitution_contrast(cast(ComparisonRow, row)),
     "not-fitted": _not_fitted,
     "small-n": _small_n,

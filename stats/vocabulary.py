@@ -61,6 +61,7 @@ WarningName = Literal[
     "values-combined",
     "pairs-skewed",
     "unit-dominates",
+    "units-repeated",
 ]
 
 PAIRS: tuple[Pairs, ...] = get_args(Pairs)

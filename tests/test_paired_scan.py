@@ -631,3 +631,39 @@ def test_few_paired_units_warn(capsys, tmp_path):
     assert (row["n_pairs"], row["n_only_a"], row["n_only_b"]) == (4, 6, 0)
     assert "few-paired" in row["warnings"].split(";")
     assert row["influential_unit"] is None
+
+
+def test_units_repeated_in_a_grouping_not_within_units_are_warned(wells_scan, wells_csv):
+    """Wells are nested in sites and sampled in three years: in the site comparison each
+    well gives up to three values that the Welch test counts as independent units
+    (pseudoreplication; Hurlbert 1984, Ecological Monographs 54:187-211, from memory), so
+    those rows carry ``units-repeated`` and say so first in the sentence; the paired year
+    rows do not. The counts behind it: a plain loop over the CSV rows."""
+    rows = read_rows(wells_csv)
+    per_site: dict[tuple[str, str], int] = defaultdict(int)
+    for r in rows:
+        if positive(r["arsenic"]) is not None:
+            per_site[(r["site"], r["well"])] += 1
+    assert max(per_site.values()) > 1  # the data repeat units within a site
+    for row in wells_scan.iter_rows(named=True):
+        warned = "units-repeated" in row["warnings"].split(";")
+        assert warned == (row["grouping"] == "site"), row
+        if warned:
+            assert "counted as independent" in row["sentence"]
+
+
+def test_one_value_per_unit_and_group_is_not_warned(capsys, tmp_path):
+    """One year of the same wells: each well gives one value per site, so nothing repeats
+    (and nothing is paired: the year column has one level and is no grouping)."""
+    rows = [dict(r, year="2020") for r in wells_rows() if r["year"] == "2020"]
+    seen: set[str] = set()
+    single = [r for r in rows if not (r["well"] in seen or seen.add(r["well"]))]
+    path = write_rows(tmp_path / "one_year.csv", single)
+    frame = scan_cli(capsys, path, "--pair-by", "well", "--group", "site")
+    assert frame.height == 2
+    assert not any("units-repeated" in w for w in frame["warnings"].fill_null("").to_list())
+
+
+def test_without_pair_by_nothing_is_said_about_units(capsys, wells_csv):
+    frame = scan_cli(capsys, wells_csv, "--group", "site", "--group", "year")
+    assert not any("units-repeated" in w for w in frame["warnings"].fill_null("").to_list())
