@@ -133,6 +133,32 @@ def paired_rows(
     return pl.concat([paired, repeated]) if repeated.height else paired
 
 
+def _repeated_groups(
+    used: pl.DataFrame, spec: GroupSpec, unit: str, outcomes: Sequence[str], names: Sequence[str]
+) -> pl.LazyFrame:
+    """The groups (grouping, within, stratum, level, outcome) of one grouping in which some
+    unit gives two or more values."""
+    counts = [pl.col(name).count().alias(o) for o, name in zip(outcomes, names, strict=True)]
+    stratum = pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)
+    return (
+        used.lazy()
+        .drop_nulls([*spec.keys, unit])
+        .group_by(*spec.keys, unit)
+        .agg(counts)
+        .group_by(spec.keys)
+        .agg(pl.col(list(outcomes)).max())
+        .unpivot(index=spec.keys, variable_name="outcome", value_name="most")
+        .filter(pl.col("most") > 1)
+        .select(
+            pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
+            pl.lit(spec.within, pl.Utf8).alias("within"),
+            stratum.alias("stratum"),
+            pl.col(spec.grouping).cast(pl.Utf8).alias("level"),
+            "outcome",
+        )
+    )
+
+
 def repeated_unit_rows(
     used: pl.DataFrame,
     specs: Sequence[GroupSpec],
@@ -146,54 +172,28 @@ def repeated_unit_rows(
     comparisons) where some unit gives two or more values in one of the two groups: those
     values are not independent, and the t-test counts each as a separate unit. One pass per
     grouping: the largest count of values per unit in each group, per outcome."""
-    flagged = []
-    columns = [
-        pl.col(name).count().alias(outcome)
-        for outcome, name in zip(outcomes, used_names, strict=True)
-    ]
-    for spec in specs:
-        counts = (
-            used.lazy()
-            .drop_nulls([*spec.keys, unit])
-            .group_by(*spec.keys, unit)
-            .agg(columns)
-            .group_by(spec.keys)
-            .agg(pl.col(list(outcomes)).max())
-            .unpivot(index=spec.keys, variable_name="outcome", value_name="most")
-            .filter(pl.col("most") > 1)
-            .select(
-                pl.lit(spec.grouping, pl.Utf8).alias("grouping"),
-                pl.lit(spec.within, pl.Utf8).alias("within"),
-                (pl.col(spec.within).cast(pl.Utf8) if spec.within else pl.lit(None, pl.Utf8)).alias(
-                    "stratum"
-                ),
-                pl.col(spec.grouping).cast(pl.Utf8).alias("level"),
-                "outcome",
-            )
-        )
-        flagged.append(counts)
-    if not flagged:
+    if not specs:
         return pl.DataFrame(schema=DESIGN_SCHEMA)
-    groups = pl.concat(pl.collect_all(flagged))
+    plans = [_repeated_groups(used, spec, unit, outcomes, used_names) for spec in specs]
+    groups = pl.concat(pl.collect_all(plans)).lazy()
     keys = ["grouping", "within", "stratum", "outcome"]
     pairs = level_pairs.lazy().join(
-        groups.lazy().select(keys).unique(), on=[*keys[:3]], how="inner", nulls_equal=True
+        groups.select(keys).unique(), on=keys[:3], how="inner", nulls_equal=True
     )
-    on_a = groups.lazy().rename({"level": "level_a"}).with_columns(pl.lit(True).alias("a"))
-    on_b = groups.lazy().rename({"level": "level_b"}).with_columns(pl.lit(True).alias("b"))
+    flags = {
+        side: groups.rename({"level": f"level_{side}"}).with_columns(pl.lit(True).alias(side))
+        for side in ("a", "b")
+    }
     rows = (
-        pairs.join(on_a, on=[*keys, "level_a"], how="left", nulls_equal=True)
-        .join(on_b, on=[*keys, "level_b"], how="left", nulls_equal=True)
+        pairs.join(flags["a"], on=[*keys, "level_a"], how="left", nulls_equal=True)
+        .join(flags["b"], on=[*keys, "level_b"], how="left", nulls_equal=True)
         .filter(pl.col("a").fill_null(False) | pl.col("b").fill_null(False))
         .select(*keys, "level_a", "level_b")
         .collect()
     )
+    empty = [name for name in DESIGN_SCHEMA if name not in rows.columns]
     return (
-        rows.with_columns(
-            pl.lit(None).alias(name)
-            for name in DESIGN_SCHEMA
-            if name not in rows.columns and name != "design_warnings"
-        )
+        rows.with_columns(pl.lit(None).alias(name) for name in empty)
         .with_columns(pl.lit(["units-repeated"]).alias("design_warnings"))
         .select(list(DESIGN_SCHEMA))
         .cast(DESIGN_SCHEMA)

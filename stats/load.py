@@ -22,17 +22,23 @@ What the reader does with odd input, and where the rules are written:
   are left out of that grouping's comparisons, and a note counts them.
 - Columns holding lists or structures (Parquet) cannot be groupings or outcomes: naming one
   is refused; guessing passes over them.
+- Guessing never takes for an outcome a column of identifiers (:func:`_looks_like_identifier`),
+  of unit numbers, of years (:func:`_is_year`) or of a quantity on an interval scale
+  (:func:`_interval_note`); each column so left out gets a note saying why, and naming it
+  with ``--outcome`` (or ``--group``) uses it as named.
 """
 
 from __future__ import annotations
 
 import hashlib
+import math
 import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Literal, get_args
 
+import numpy as np
 import polars as pl
 
 from .entries import (
@@ -165,7 +171,8 @@ class Table:
         Per grouping, the count of rows with no level (empty or a missing marker).
     notes:
         One line for each thing the reader did that the user should know (renamed columns,
-        the encoding, skipped lines, units, codes, rows without a level).
+        the encoding, skipped lines, units, codes, rows without a level, columns of numbers
+        that guessing left out and why).
     units:
         Per outcome, its unit where one is known (from a long table's unit column, the
         cells, or the column name such as ``copper_mg_per_kg``).
@@ -246,6 +253,16 @@ PLAIN_KINDS = [NUMBER, MISSING]
 
 _ARTICLE = {"grouping": "a", "outcome": "an", "design column": "a"}
 _ID_NAME = re.compile(r"(^|[_ .-])(id|no|num|number|index|idx|sample|row)$", re.IGNORECASE)
+#: The same words ending a name written in camel case (``SampleID``, ``PatientNo``).
+_ID_CAMEL = re.compile(r"[a-z](ID|Id|No|Nr|Num|Number|Index|Idx)$")
+#: Our rule for identifiers neither named like one nor numbered 1..n (patient numbers such as
+#: 10056, 10059, 10089, ...): whole numbers, all different but for at most 1% of the rows,
+#: packed so closely that measurements would repeat values. From the spacing of the sorted
+#: values (a smooth density on their grid), the pairs of equal values that many measurements
+#: would give are expected; seeing as few as the column has is then less likely than this
+#: (Poisson). The usual two-sided significance levels are 0.05 and 0.01; this is stricter
+#: because a false call leaves a measurement out.
+IDENTIFIER_ALPHA = 1e-3
 #: Names of columns that number the units measured (subjects, patients, animals): whole
 #: numbers repeated on several rows there identify, they neither measure nor group.
 _UNIT_NAME = re.compile(
@@ -257,10 +274,27 @@ _UNIT_NAME = re.compile(
 _DATE = re.compile(
     r"^(\d{4}-\d{1,2}-\d{1,2}|\d{1,2}[/.-]\d{1,2}[/.-]\d{2,4})([ T]\d{1,2}:\d{2}(:\d{2})?.*)?$"
 )
-#: Whole numbers in this range, in a column named like a year or with many levels, are
-#: years: not measurements, and groupings only when named.
+#: Whole numbers all in this range of calendar years are years (our rule): never guessed as
+#: outcomes; a grouping when they take 2 to MAX_INTEGER_GROUP_LEVELS values and no
+#: --group is given, else left out with a note (name them with --group to compare them).
 _YEARS = (1800, 2200)
 _YEAR_NAME = re.compile(r"(^|[_ .-])(year|yr|jahr|annee|año|date|time)s?$", re.IGNORECASE)
+#: A name that says "year" (singular: ``year``, ``sampling_year``) holds years whatever their
+#: range (1, 2, 3 for study years); the plural says how long (``age_years``), a measurement.
+_YEAR_WORD = re.compile(
+    r"(^|[_ .-])(year|yr|jahr|annee|année|año)$|(?-i:[a-z]Year)$", re.IGNORECASE
+)
+#: Our rule for a quantity on an interval scale (a temperature in degrees Celsius, a
+#: difference, a score), whose ratios mean nothing: at least NEGATIVE_COUNT of its values,
+#: and at least NEGATIVE_SHARE of them, are negative, and the most negative reaches
+#: NEGATIVE_REACH of its median positive value below zero. Fewer or smaller negatives are
+#: taken for noise around zero (blank-corrected laboratory results near the detection limit
+#: are commonly reported as they are, negatives included) or for a slip, and are left out per
+#: group like zeros. Zeros alone never make a column interval-scale (a concentration can be
+#: 0), and a column with no positive value is refused by name as before.
+NEGATIVE_COUNT = 3
+NEGATIVE_SHARE = 0.01
+NEGATIVE_REACH = 0.25
 #: A whole number as written, maybe before a unit (``12``, ``10 mg``, ``20%``; not ``12.0``
 #: nor ``1e3``).
 _INTEGER = r"^[$€£¥]?\s*[+-]?[0-9]+(?:$|[^0-9.,eE])"
@@ -276,37 +310,142 @@ def _integer_like(frame: pl.DataFrame, name: str, value: pl.Series) -> bool:
     return bool(written.str.contains(_INTEGER).all())
 
 
-def _looks_like_identifier(name: str, numbers: pl.Series) -> bool:
-    """Whole numbers, one per row, named like an identifier or running 0/1..n in steps of 1."""
-    distinct = numbers.n_unique()
-    if distinct != numbers.len() or distinct < 3:
+def _looks_like_identifier(name: str, numbers: pl.Series, distinct: int) -> bool:
+    """Whole numbers that number rows: one per row and named like an identifier or running
+    0/1..n in steps of 1, or too nearly all different for measurements (``_too_different``)."""
+    if distinct < 3:
         return False
-    if _ID_NAME.search(name):
+    if distinct == numbers.len():
+        if _ID_NAME.search(name) or _ID_CAMEL.search(name):
+            return True
+        ordered = numbers.sort()
+        if bool((ordered.diff().drop_nulls() == 1).all()):
+            return True
+    return _too_different(numbers, distinct)
+
+
+def _too_different(numbers: pl.Series, distinct: int) -> bool:
+    """``IDENTIFIER_ALPHA``: whole numbers with fewer pairs of equal values than measurements
+    spread as they are could plausibly give."""
+    n = numbers.len()
+    largest = numbers.cast(pl.Float64).abs().max()
+    if n - distinct > max(1, n // 100) or not isinstance(largest, float) or largest >= 2.0**53:
+        return False
+    ordered = np.sort(numbers.cast(pl.Int64).to_numpy())
+    gaps = np.diff(ordered)
+    step = int(np.gcd.reduce(gaps[gaps > 0])) if bool((gaps > 0).any()) else 1
+    # The chance that a value falls on one point of the grid near each value, from the
+    # span of the k values above it (a k-nearest-neighbour density estimate).
+    k = max(2, math.isqrt(n))
+    spans = (ordered[k:] - ordered[:-k]) / step
+    chance = k / (n * np.maximum(spans, 1.0))
+    expected = 0.5 * n * (n - 1) * float(chance.mean())
+    _, counts = np.unique(ordered, return_counts=True)
+    pairs = int((counts * (counts - 1) // 2).sum())
+    # The Poisson CDF from scipy.special (what scipy.stats.poisson.cdf calls), imported only
+    # here: reading a file needs no scipy otherwise, and scipy.stats is slow to import.
+    from scipy.special import pdtr
+
+    return bool(pdtr(pairs, expected) < IDENTIFIER_ALPHA)
+
+
+def _is_year(name: str, numbers: pl.Series) -> bool:
+    """Whole numbers that say when: all within the calendar years ``_YEARS``, or in a
+    column whose name says year."""
+    if _YEAR_WORD.search(name):
         return True
-    ordered = numbers.sort()
-    return bool((ordered.diff().drop_nulls() == 1).all())
+    bounds = _bounds(numbers)
+    return bounds is not None and _YEARS[0] <= bounds[0] <= bounds[1] <= _YEARS[1]
+
+
+def _bounds(numbers: pl.Series) -> tuple[float, float] | None:
+    """The smallest and largest value (None if there is none)."""
+    value = numbers.cast(pl.Float64)
+    low, high = value.min(), value.max()
+    return (low, high) if isinstance(low, float) and isinstance(high, float) else None
+
+
+#: Why whole numbers are not measurements: they number rows or the units measured, say
+#: when, or are a few levels; None: they are measurements.
+WholeKind = Literal["identifier", "unit", "year", "levels"] | None
+
+
+def _whole_number_kind(name: str, numbers: pl.Series) -> WholeKind:
+    """What whole numbers are: an identifier, a year, a unit number, a few levels, or (None)
+    a measurement."""
+    distinct = numbers.n_unique()
+    if _looks_like_identifier(name, numbers, distinct):
+        return "identifier"  # a sample number, not a measurement nor a grouping
+    if _UNIT_NAME.search(name) and distinct < numbers.len():
+        return "unit"  # subject 1..k on several rows each: who was measured
+    if _is_year(name, numbers):
+        return "year"
+    if 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
+        return "levels"
+    return None
 
 
 Role = Literal["grouping", "outcome"] | None
 
 
-def _whole_number_role(name: str, numbers: pl.Series) -> Role | Literal["measure"]:
-    """The role of whole numbers: an identifier, a year, a unit number or a few levels are
-    not measurements ("measure": they are)."""
-    distinct = numbers.n_unique()
-    if _looks_like_identifier(name, numbers):
-        return None  # a sample number, not a measurement nor a grouping
-    low, high = numbers.cast(pl.Float64).min(), numbers.cast(pl.Float64).max()
-    years = (
-        isinstance(low, float) and isinstance(high, float) and _YEARS[0] <= low <= high <= _YEARS[1]
+@dataclass(frozen=True)
+class _Guess:
+    """A column's guessed role, and why it is not an outcome when it holds numbers (a note;
+    for a guessed grouping: why it stays out of the outcomes when --group names others)."""
+
+    role: Role
+    why: str | None = None
+
+
+def _whole_guess(name: str, kind: WholeKind, numbers: pl.Series) -> _Guess:
+    """The guess for whole numbers that are not measurements (``kind`` is not None)."""
+    distinct, rows = numbers.n_unique(), numbers.len()
+    if kind == "levels":
+        return _Guess("grouping", _interval_note(name, numbers))
+    if kind == "year":
+        low, high = _bounds(numbers) or (math.nan, math.nan)
+        why = (
+            f"{name}: left out of the outcomes: years ({low:g} to {high:g}) say when, not "
+            "what was measured; name it with --group to compare its years"
+        )
+        few = 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS
+        return _Guess("grouping" if few else None, why)
+    what = "an identifier" if kind == "identifier" else "the number of the unit measured"
+    return _Guess(
+        None,
+        f"{name}: left out as {what}: whole numbers, {distinct:,} different in {rows:,} rows; "
+        "name it with --outcome or --group to use it",
     )
-    if years and distinct >= 2 and (_YEAR_NAME.search(name) or distinct > MAX_INTEGER_GROUP_LEVELS):
-        return "grouping" if distinct <= MAX_INTEGER_GROUP_LEVELS else None
-    if _UNIT_NAME.search(name) and distinct < numbers.len():
-        return None  # subject 1..k on several rows each: who was measured
-    if 2 <= distinct <= MAX_INTEGER_GROUP_LEVELS:
-        return "grouping"
-    return "measure"
+
+
+def _interval_note(name: str, values: pl.Series) -> str | None:
+    """Why a column of numbers is on an interval scale (the rule at ``NEGATIVE_COUNT``), or
+    None when it is not."""
+    value = values.cast(pl.Float64)
+    if int((value < 0).sum()) < NEGATIVE_COUNT:
+        return None  # most columns: one quick pass
+    finite = value.is_finite()
+    negative = value.filter(finite & (value < 0))
+    count, total = negative.len(), int(finite.sum())
+    if count < max(NEGATIVE_COUNT, NEGATIVE_SHARE * total):
+        return None
+    lowest = negative.min()
+    typical = value.filter(finite & (value > 0)).median()
+    if not isinstance(lowest, float) or not isinstance(typical, float):
+        return None  # no positive value: the reader refuses it by name (no logs at all)
+    if -lowest < NEGATIVE_REACH * typical:
+        return None  # noise around zero: left out per group like zeros
+    return (
+        f"{name}: left out of the outcomes: {count:,} of {total:,} values are negative "
+        f"(down to {lowest:g}), so it is on an interval scale (a temperature, a difference, "
+        "a score) where a ratio means nothing; name it with --outcome to compare it anyway"
+    )
+
+
+def _measured(name: str, values: pl.Series) -> _Guess:
+    """An outcome, unless the values are on an interval scale."""
+    why = _interval_note(name, values)
+    return _Guess("outcome") if why is None else _Guess(None, why)
 
 
 def _looks_like_dates(frame: pl.DataFrame, name: str) -> bool:
@@ -316,7 +455,14 @@ def _looks_like_dates(frame: pl.DataFrame, name: str) -> bool:
     return text.len() > 0 and dated >= 0.8 * text.len()
 
 
-def _text_role(frame: pl.DataFrame, name: str, parsed: ParsedColumn, distinct: int) -> Role:
+def _yearish(name: str, numbers: pl.Series) -> bool:
+    """Whole numbers named like a year or a date, or all within the calendar years."""
+    if numbers.len() == 0 or not bool((numbers.cast(pl.Float64) % 1 == 0).all()):
+        return False
+    return bool(_YEAR_NAME.search(name)) or _is_year(name, numbers)
+
+
+def _text_role(frame: pl.DataFrame, name: str, parsed: ParsedColumn, distinct: int) -> _Guess:
     """The role of a text column: numbers (mostly) or labels. Dates with many levels are
     neither (name them with --group)."""
     reading = parsed.reading
@@ -324,33 +470,32 @@ def _text_role(frame: pl.DataFrame, name: str, parsed: ParsedColumn, distinct: i
         # Detection limits and range codes mark measurements, never labels.
         coded = reading.censored + reading.censored_without_limit + reading.above_range
         numbers = parsed.value.drop_nulls()
-        named_year = bool(_YEAR_NAME.search(name)) and bool((numbers % 1 == 0).all())
-        if not coded and (named_year or _integer_like(frame, name, parsed.value)):
-            role = _whole_number_role(name, numbers)
-            if role != "measure":
-                return role
-        return "outcome"
+        if not coded and (_yearish(name, numbers) or _integer_like(frame, name, parsed.value)):
+            kind = _whole_number_kind(name, numbers)
+            if kind is not None:
+                return _whole_guess(name, kind, numbers)
+        return _measured(name, parsed.value)
     if distinct > MAX_INTEGER_GROUP_LEVELS and _looks_like_dates(frame, name):
-        return None
+        return _Guess(None)
     if 2 <= distinct <= MAX_GROUP_LEVELS and distinct < frame.height:
-        return "grouping"
-    return None
+        return _Guess("grouping")
+    return _Guess(None)
 
 
-def _typed_role(frame: pl.DataFrame, name: str, distinct: int) -> Role:
+def _typed_role(frame: pl.DataFrame, name: str, distinct: int) -> _Guess:
     """The role of a column that arrived typed (Parquet, an in-memory frame). Dates and
     times are not guessed (name them with --group)."""
     dtype = frame.schema[name]
     if dtype == pl.Boolean:
-        return "grouping"
+        return _Guess("grouping")
     if not dtype.is_numeric():
-        return None
+        return _Guess(None)
     numbers = frame[name].drop_nulls()
-    whole = numbers.len() > 0 and bool((numbers.cast(pl.Float64) % 1 == 0).all())
-    if dtype.is_integer() or (whole and _YEAR_NAME.search(name)):
-        role = _whole_number_role(name, numbers)
-        return "outcome" if role == "measure" else role
-    return "outcome"
+    if dtype.is_integer() or _yearish(name, numbers):
+        kind = _whole_number_kind(name, numbers)
+        if kind is not None:
+            return _whole_guess(name, kind, numbers)
+    return _measured(name, frame[name])
 
 
 def _level_counts(frame: pl.DataFrame, columns: Iterable[str]) -> dict[str, int]:
@@ -381,19 +526,29 @@ def infer_roles(
 ) -> tuple[list[str], list[str]]:
     """Guess grouping and outcome columns of a raw frame (``parsed``: its text columns read
     as numbers, when already done)."""
+    guesses = _guesses(frame, parsed)
+    return _having(guesses, "grouping"), _having(guesses, "outcome")
+
+
+def _guesses(
+    frame: pl.DataFrame, parsed: dict[str, ParsedColumn] | None = None
+) -> dict[str, _Guess]:
+    """Each column's guessed role, and why a column of numbers is not an outcome."""
     if parsed is None:
         parsed = read_columns(frame, [n for n, t in frame.schema.items() if _is_text(t)])
     levels = _level_counts(frame, _counted(frame, parsed))
-    roles: dict[str, list[str]] = {"grouping": [], "outcome": []}
+    guesses = {}
     for name in frame.columns:
         distinct = levels.get(name, 0)
         if name in parsed:
-            role = _text_role(frame, name, parsed[name], distinct)
+            guesses[name] = _text_role(frame, name, parsed[name], distinct)
         else:
-            role = _typed_role(frame, name, distinct)
-        if role is not None:
-            roles[role].append(name)
-    return roles["grouping"], roles["outcome"]
+            guesses[name] = _typed_role(frame, name, distinct)
+    return guesses
+
+
+def _having(guesses: dict[str, _Guess], role: Role) -> list[str]:
+    return [name for name, guess in guesses.items() if guess.role == role]
 
 
 def _read(
@@ -428,24 +583,43 @@ def _choose_roles(
     groupings: Sequence[str],
     outcomes: Sequence[str],
     parsed: dict[str, ParsedColumn],
-) -> tuple[list[str], list[str]]:
-    """Grouping and outcome columns: the named ones, the rest guessed."""
+) -> tuple[list[str], list[str], dict[str, str]]:
+    """Grouping and outcome columns: the named ones, the rest guessed; and, when outcomes
+    are guessed, why each column of numbers used for neither was left out (a note)."""
     if groupings and outcomes:
-        return list(groupings), list(outcomes)
-    guessed_groups, guessed_outcomes = infer_roles(raw, parsed)
+        return list(groupings), list(outcomes), {}
+    guesses = _guesses(raw, parsed)
+    guessed_groups = _having(guesses, "grouping")
     chosen_groups = list(groupings) or [n for n in guessed_groups if n not in outcomes]
     if outcomes:
-        return chosen_groups, list(outcomes)
-    chosen_outcomes = [name for name in guessed_outcomes if name not in chosen_groups]
+        return chosen_groups, list(outcomes), {}
+    chosen_outcomes = [name for name in _having(guesses, "outcome") if name not in chosen_groups]
     if groupings:
-        # The user named the groupings: few-level integer columns are measurements too.
-        chosen_outcomes += [
-            name
-            for name in guessed_groups
-            if name not in chosen_groups and _is_numeric_column(raw, name, parsed)
-        ]
+        chosen_outcomes += _levels_measured(raw, guesses, chosen_groups, parsed)
         chosen_outcomes.sort(key=raw.columns.index)
-    return chosen_groups, chosen_outcomes
+    used = {*chosen_groups, *chosen_outcomes}
+    left_out = {
+        name: guess.why for name, guess in guesses.items() if guess.why and name not in used
+    }
+    return chosen_groups, chosen_outcomes, left_out
+
+
+def _levels_measured(
+    raw: pl.DataFrame,
+    guesses: dict[str, _Guess],
+    groupings: Sequence[str],
+    parsed: dict[str, ParsedColumn],
+) -> list[str]:
+    """When the user names the groupings, the few-level integer columns guessed as
+    groupings are measurements too; not years nor codes below zero (their guess says why)."""
+    return [
+        name
+        for name, guess in guesses.items()
+        if guess.role == "grouping"
+        and guess.why is None
+        and name not in groupings
+        and _is_numeric_column(raw, name, parsed)
+    ]
 
 
 def _is_numeric_column(raw: pl.DataFrame, name: str, parsed: dict[str, ParsedColumn]) -> bool:
@@ -454,15 +628,22 @@ def _is_numeric_column(raw: pl.DataFrame, name: str, parsed: dict[str, ParsedCol
     return raw.schema[name].is_numeric()
 
 
-def _check_roles(groupings: list[str], outcomes: list[str], label: str) -> None:
+def _check_roles(
+    groupings: list[str], outcomes: list[str], label: str, left_out: Sequence[str] = ()
+) -> None:
     overlap = set(groupings) & set(outcomes)
     if overlap:
         raise InputError(
             f"{label}: column {sorted(overlap)[0]!r} cannot be both grouping and outcome"
         )
     if not outcomes:
+        passed = (
+            f" (guessing left out {', '.join(left_out)}: identifiers, years or values below zero)"
+            if left_out
+            else ""
+        )
         raise InputError(
-            f"{label}: no numeric outcome columns found; name them with --outcome COLUMN"
+            f"{label}: no numeric outcome columns found{passed}; name them with --outcome COLUMN"
         )
     if not groupings:
         raise InputError(
@@ -666,7 +847,7 @@ def load_table(
     named_outcomes = tuple(outcomes or ()) or _long_outcomes(widened)
     raw = source.frame
     parsed = _parsed(source, (named_groups, named_outcomes), reading, label)
-    chosen_groups, chosen_outcomes = _roles(
+    chosen_groups, chosen_outcomes, left_out = _roles(
         raw, (named_groups, named_outcomes), parsed, design, label
     )
     readings = {name: parsed[name].reading for name in chosen_outcomes if name in parsed}
@@ -687,6 +868,7 @@ def load_table(
         readings=readings,
         no_level=no_level,
         notes=_notes(source.notes, readings.values(), no_level)
+        + left_out
         + tuple(_looks_long(chosen_groups) if widened is None else ()),
         units=_units(chosen_outcomes, readings, widened),
         units_apart=_long_units_apart(widened),
@@ -718,14 +900,16 @@ def _roles(
     parsed: dict[str, ParsedColumn],
     design: Sequence[str],
     label: str,
-) -> tuple[list[str], list[str]]:
-    """The grouping and outcome columns (``_choose_roles``), design columns taken out."""
+) -> tuple[list[str], list[str], tuple[str, ...]]:
+    """The grouping and outcome columns (``_choose_roles``), design columns taken out, and
+    the notes on columns of numbers that guessing left out."""
     _check_named(raw, label, "design column", design)
-    groups, outcomes = _choose_roles(raw, named[0], named[1], parsed)
+    groups, outcomes, left_out = _choose_roles(raw, named[0], named[1], parsed)
     groups = [name for name in groups if name not in design]
     outcomes = [name for name in outcomes if name not in design]
-    _check_roles(groups, outcomes, label)
-    return groups, outcomes
+    left_out = {name: why for name, why in left_out.items() if name not in design}
+    _check_roles(groups, outcomes, label, list(left_out))
+    return groups, outcomes, tuple(left_out.values())
 
 
 def _with_design(typed: pl.DataFrame, raw: pl.DataFrame, design: Sequence[str]) -> pl.DataFrame:
