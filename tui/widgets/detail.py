@@ -62,6 +62,13 @@ class Facts(VerticalScroll):
         self._subject = subject
         self.paint()
 
+    @property
+    def text_width(self) -> int:
+        """The cells the facts are laid out for: the pane less its vertical scroll bar,
+        whether or not the bar shows, so the layout does not change when it appears (the
+        facts, laid out one cell too wide, would wrap their table rows)."""
+        return self.size.width - self.styles.scrollbar_size_vertical
+
     def paint(self) -> None:
         if self._subject is None:
             return
@@ -70,7 +77,7 @@ class Facts(VerticalScroll):
         if row is None:
             sentence.update(Text("No comparison matches the filter.", style="italic"))
             return
-        width = max(sentence.size.width, 20)
+        width = max(self.text_width, 20)
         text = facts_text(row, self._band, self._subject.check, width)
         # A layout pass costs more than the paint: only ask for one when the height changes.
         lines = len(text.wrap(self.app.console, width))
