@@ -143,7 +143,9 @@ def any_fold(*values: float | None) -> bool:
 def interval_text(low: float | None, high: float | None, joiner: str = "–") -> str:
     """A confidence interval of a ratio by the ratio's rule: ``1.70–3.10``; when a bound is
     a fold, both are (``÷5.3k–÷21``, not ``÷5.3k–0.048``). ``joiner=" to "`` gives
-    ``1.70 to 3.10``."""
+    ``1.70 to 3.10``; one "–" when neither bound is a ratio (no interval)."""
+    if _ratio(low) is None and _ratio(high) is None:
+        return MISSING
     folded = any_fold(low, high)
     return f"{_written(low, False, folded)}{joiner}{_written(high, False, folded)}"
 

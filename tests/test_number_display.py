@@ -463,3 +463,13 @@ async def test_list_and_detail_draw_a_large_change_as_a_fold(tmp_path: Path) -> 
         said = re.search(r" is ([0-9,]+)× lower than in site a", sentence(app))
         assert said, sentence(app)
         assert math.isclose(1 / float(said[1].replace(",", "")), gm_ratio(a, b), rel_tol=0.051)
+
+
+def test_no_interval_is_one_dash():
+    """A comparison with no result has no interval: one dash, not a dash for each bound
+    around the joiner (which read as a damaged range in the list)."""
+    from foldsift.stats.formatting import MISSING, interval_text
+
+    assert interval_text(None, None) == MISSING
+    assert interval_text(float("nan"), float("nan"), " to ") == MISSING
+    assert interval_text(None, 2.0) == f"{MISSING}–2.00"
