@@ -184,6 +184,27 @@ def _resolve_references(
     return resolved
 
 
+def reference_notes(summaries: pl.DataFrame, settings: ScanSettings) -> tuple[str, ...]:
+    """A note for each grouping compared against a reference in which none of the given
+    reference levels is a level: its first level in natural order is the reference there."""
+    if settings.pairs != "reference" or not settings.reference:
+        return ()
+    resolved = _resolve_references(summaries, settings.reference)
+    given = ", ".join(repr(str(item)) for item in settings.reference)
+    notes = []
+    for grouping, levels in (
+        summaries.group_by("grouping", maintain_order=True).agg(pl.col("level").unique()).rows()
+    ):
+        ordered = level_order(list(levels))
+        if _reference_for(grouping, ordered, resolved) is None:
+            notes.append(
+                f"grouping {grouping!r} has no reference level {given}: its levels are "
+                f"compared with {ordered[0]!r}, the first in order; name one with "
+                f"--reference {grouping}=LEVEL"
+            )
+    return tuple(notes)
+
+
 def _level_pairs(
     grouping: str, levels: list[str], pairs: Pairs, references: list[_Resolved]
 ) -> list[tuple[str, str]]:
@@ -332,7 +353,7 @@ def run_scan(
         groupings=table.groupings,
         outcomes=table.outcomes,
         unparsed=dict(table.unparsed),
-        notes=table.notes,
+        notes=table.notes + reference_notes(summaries, settings),
     )
     return ScanResult(comparisons, summaries, settings, source, values, entries)
 

@@ -40,6 +40,7 @@ from .scan import (
     compare_summaries,
     complete_summaries,
     level_sets,
+    reference_notes,
     summarise,
 )
 from .values import group_specs
@@ -248,7 +249,8 @@ def _scan_files(
         kind="raw",
         groupings=tuple(chosen_groups),
         outcomes=tuple(chosen_outcomes),
-        notes=(f"read {len(files)} Parquet file(s) {size} outcome(s) at a time",),
+        notes=(f"read {len(files)} Parquet file(s) {size} outcome(s) at a time",)
+        + reference_notes(summaries, settings),
     )
     return ScanResult(comparisons, summaries, settings, source, values=None)
 

@@ -30,7 +30,14 @@ from .censored import MAX_CENSORED_SHARE, MIN_DETECTED, TOO_CENSORED, TOO_FEW_DE
 from .censored_information import variance_of_mean_log
 from .load import InputError, read_raw, read_source
 from .policy import ValuePolicy
-from .scan import DataSource, ScanResult, ScanSettings, compare_summaries, complete_summaries
+from .scan import (
+    DataSource,
+    ScanResult,
+    ScanSettings,
+    compare_summaries,
+    complete_summaries,
+    reference_notes,
+)
 from .summaries import SUMMARY_SCHEMA
 
 REQUIRED = ("grouping", "level", "outcome", "n", "mean_log")
@@ -190,5 +197,6 @@ def scan_summary_table(path: Path | str, settings: ScanSettings | None = None) -
         kind="summary table",
         groupings=tuple(dict.fromkeys(summaries["grouping"].to_list())),
         outcomes=outcomes,
+        notes=reference_notes(summaries, settings),
     )
     return ScanResult(comparisons, summaries, settings, source, values=None)

@@ -291,3 +291,27 @@ def test_usage_error_is_one_line(capsys):
         main(["scan", "x.csv", "--test", "sometimes"])
     assert raised.value.code == EXIT_BAD_INPUT
     assert_one_line_failure(EXIT_BAD_INPUT, capsys.readouterr(), "--test", "sometimes")
+
+
+def test_a_grouping_without_the_reference_level_is_noted(tmp_path, capsys):
+    """--reference names a level of one grouping only: the other grouping falls back to its
+    first level, and the command says so (the comparison count alone would not tell)."""
+    path = write(
+        tmp_path / "two.csv",
+        "season,field,lead\n"
+        + "".join(
+            f"{s},{f},{1 + i + 0.5 * j}\n"
+            for i, s in enumerate(("autumn", "spring"))
+            for j, f in enumerate(("ash", "oak", "elm"))
+            for _ in range(3)
+        ),
+    )
+    out = tmp_path / "out.csv"
+    assert main(["scan", str(path), "--reference", "spring", "--out", str(out)]) == 0
+    err = capsys.readouterr().err
+    assert "grouping 'field' has no reference level 'spring'" in err
+    assert "compared with 'ash'" in err and "--reference field=LEVEL" in err
+    assert "grouping 'season' has no reference" not in err
+    rows = pl.read_csv(out)
+    assert set(rows.filter(pl.col("grouping") == "field")["level_a"]) == {"ash"}
+    assert set(rows.filter(pl.col("grouping") == "season")["level_a"]) == {"spring"}
