@@ -122,3 +122,29 @@ def test_the_inline_interval_is_drawn_on_one_log_axis():
         assert min(drawn) == max(column(low), 0) and max(drawn) == min(column(high), width - 1)
     blank = interval_cells({"ratio": None, "ci_low": None, "ci_high": None}, width, span)
     assert blank.strip() == "│"
+
+
+@pytest.mark.parametrize(
+    ("pair", "width"),
+    [
+        ("north_meadow ÷ brook_end", 17),
+        ("long_acre ÷ brook_end", 14),
+        ("a ÷ brook_end_long_name", 17),
+        ("willow_carr ⇄ ash", 12),
+        ("b ÷ a", 5),
+    ],
+)
+def test_a_level_pair_too_wide_keeps_both_names_on_screen(pair, width):
+    """Cut at the end, a long level b hid the reference level; each name now gets its share
+    (the shorter kept whole up to half the room), with "…" where cut."""
+    from foldsift.tui.widgets.comparison_list import _level_pair
+
+    between = " ÷ " if " ÷ " in pair else " ⇄ "
+    b, a = pair.split(between)
+    text = _level_pair(pair, width)
+    assert cell_len(text) <= width
+    got_b, got_a = text.split(between)
+    for got, name in ((got_b, b), (got_a, a)):
+        assert got and (got == name or (got.endswith("…") and name.startswith(got[:-1])))
+    if cell_len(min(a, b, key=cell_len)) <= (width - 3) // 2:
+        assert min(a, b, key=cell_len) in (got_a, got_b)

@@ -201,11 +201,33 @@ SORT_NAMES: dict[str, str] = {column.sort_on: column.title for column in COLUMNS
 SEPARATOR = " "
 
 
+def _clip(text: str, width: int) -> str:
+    """``text`` cut to ``width`` cells with "…" when it is longer."""
+    if cell_len(text) <= width:
+        return text
+    return set_cell_size(text, max(width - 1, 0)) + "…" if width > 0 else ""
+
+
+def _level_pair(text: str, width: int) -> str:
+    """A level pair ``b ÷ a`` too wide for its column: both names are cut, each to its share
+    of the width (the longer one gives up more), so the reference level stays on screen."""
+    for between in (" ÷ ", " ⇄ "):
+        b, found, a = text.partition(between)
+        if found:
+            room = width - cell_len(between)
+            short = min(cell_len(b), cell_len(a), room // 2)
+            b_room = room - min(cell_len(a), room - short)
+            return f"{_clip(b, b_room)}{between}{_clip(a, room - b_room)}"
+    return _clip(text, width)
+
+
 def _cell(text: str, column: Column) -> str:
     """Fit text to the column by terminal cells (wide characters take two). Names come
     from the data: control characters show as symbols (rows are painted as plain
-    segments, so nothing in them is read as markup)."""
+    segments, so nothing in them is read as markup). A level pair is cut in both names."""
     text = visible(text)
+    if cell_len(text) > column.width and column.sort_on == col.LEVEL_B:
+        text = _level_pair(text, column.width)
     if cell_len(text) > column.width:
         text = set_cell_size(text, column.width - 1) + "…"
     padding = " " * (column.width - cell_len(text))
