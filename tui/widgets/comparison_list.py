@@ -226,7 +226,7 @@ def _cell(text: str, column: Column) -> str:
     from the data: control characters show as symbols (rows are painted as plain
     segments, so nothing in them is read as markup). A level pair is cut in both names."""
     text = visible(text)
-    if cell_len(text) > column.width and column.sort_on == col.LEVEL_B:
+    if cell_len(text) > column.width and column.sort_on == col.LEVEL_B and text != column.title:
         text = _level_pair(text, column.width)
     if cell_len(text) > column.width:
         text = set_cell_size(text, column.width - 1) + "…"
