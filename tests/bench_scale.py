@@ -100,6 +100,7 @@ def warm_up() -> None:
         check=True,
         env=CHILD_ENV,
         stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
     )
 
 
