@@ -55,8 +55,9 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from typing import Literal
+from typing import Any, Literal
 
+import numpy as np
 import polars as pl
 
 #: Entries treated as missing in every column (compared case-insensitively).
@@ -119,6 +120,15 @@ _VALID = {
     "comma": rf"^[+-]?(?:[0-9]+|[0-9]{{1,3}}(?:\.[0-9]{{3}})+|{_SPACED})?(?:,[0-9]*)?{_EXP}$",
     "both": rf"^[+-]?[0-9]*(?:[.,][0-9]+)?{_EXP}$",
 }
+#: A plain number: a number part alone (a sign, digits with at most a point followed by
+#: digits, an exponent), with no comparison sign, currency, unit or qualifier around it. The
+#: full rules read it as its text cast to a number under a decimal point, both marks or an
+#: undecided mark, so only decimal-comma columns read it otherwise (``5.``, ``1.e3`` and
+#: ``inf`` cast too, but the full rules do not read them as that number).
+_PLAIN = rf"^[+-]?(?:[0-9]+(?:\.[0-9]+)?|\.[0-9]+){_EXP}$"
+#: About how many distinct entries are read by the full rules in one batch (the batches of
+#: a table's columns are read in parallel).
+_BATCH = 20_000
 
 
 @dataclass(frozen=True)
@@ -358,81 +368,198 @@ class ParsedColumn:
     unit: pl.Series | None = field(default=None, compare=False)
 
 
-def _plain_counts(texts: pl.DataFrame) -> dict[str, tuple[int, int]]:
-    """Per column: (non-missing entries, entries that are plain finite numbers). Missing
-    words are looked for only among the entries that are not plain numbers."""
+def _numbers(texts: pl.DataFrame) -> pl.DataFrame:
+    """Each entry cast to a number, null unless it is a finite one (cast once, then kept)."""
+    cast = texts.select(pl.all().cast(pl.Float64, strict=False))
+    return cast.select(
+        pl.when(pl.col(c).is_finite()).then(pl.col(c)).alias(c) for c in cast.columns
+    )
+
+
+def _side_by_side(
+    texts: pl.DataFrame, numbers: pl.DataFrame, columns: Sequence[str]
+) -> pl.DataFrame:
+    """The named columns' entries (``t <name>``) and finite numbers (``n <name>``)."""
+    return pl.DataFrame(
+        [
+            *(texts[c].alias(f"t {c}") for c in columns),
+            *(numbers[c].alias(f"n {c}") for c in columns),
+        ]
+    )
+
+
+def _plain_counts(paired: pl.DataFrame, columns: Sequence[str]) -> dict[str, tuple[int, int]]:
+    """Per column: (non-missing entries, entries that are finite numbers). Missing words
+    are looked for only among the entries that are not finite numbers."""
     exprs = []
-    for index, name in enumerate(texts.columns):
-        text = pl.col(name)
-        finite = text.cast(pl.Float64, strict=False).is_finite()
-        others = text.filter(text.is_not_null() & ~finite.fill_null(False))
+    for name in columns:
+        text, number = pl.col(f"t {name}"), pl.col(f"n {name}")
+        others = text.filter(text.is_not_null() & number.is_null())
         words = others.str.to_lowercase().is_in(list(MISSING_WORDS)).sum()
-        exprs.append((pl.len() - text.null_count() - words).alias(f"{index}e"))
-        exprs.append(finite.sum().alias(f"{index}p"))
-    row = texts.select(exprs).row(0) if exprs else ()
-    return {name: (row[2 * i], row[2 * i + 1]) for i, name in enumerate(texts.columns)}
+        exprs.append((pl.len() - text.null_count() - words).alias(f"e {name}"))
+        exprs.append(number.count().alias(f"p {name}"))
+    row = paired.select(exprs).row(0, named=True) if exprs else {}
+    return {name: (int(row[f"e {name}"]), int(row[f"p {name}"])) for name in columns}
 
 
-def _unique_parts(texts: pl.DataFrame, columns: Sequence[str]) -> dict[str, pl.DataFrame]:
-    """Per column, its distinct entries (``text``, null included) with their parts (``p``):
-    entries repeat, so each spelling is read once."""
-    return {
-        name: texts.select(pl.col(name).unique().alias("text")).with_columns(
-            pl.col("text").str.extract_groups(_ENTRY).alias("p")
-        )
-        for name in columns
-    }
+@dataclass(frozen=True)
+class _Split:
+    """One column's entries in two parts: its plain numbers (``fast``: each entry's number,
+    null for the other entries, None when no entry is plain; ``plain``: how many there are)
+    and its distinct other entries (``others``: ``text`` and its parts ``p``), with the
+    shapes of both (``marks``)."""
+
+    fast: pl.Series | None
+    plain: int
+    others: pl.DataFrame
+    marks: MarkCounts
 
 
-def _mark_counts(uniques: dict[str, pl.DataFrame]) -> dict[str, MarkCounts]:
-    """Shapes of the distinct number parts of each column (distinct entries suffice: every
+def _parts(others: pl.LazyFrame) -> pl.LazyFrame:
+    return others.with_columns(pl.col("text").str.extract_groups(_ENTRY).alias("p"))
+
+
+def _mark_counts(parts: pl.LazyFrame) -> pl.LazyFrame:
+    """Shapes of the number parts of distinct entries (distinct entries suffice: every
     decision asks only whether some entry has a shape)."""
+    num = pl.col("p").struct.field("num")
+    exprs = [num.str.contains(p).sum().alias(shape) for shape, p in _SHAPES.items()]
+    for mark in ("comma", "point"):
+        ambiguous = num.filter(num.str.contains(_SHAPES[f"ambiguous_{mark}"]))
+        exprs.append(ambiguous.min().alias(f"example_{mark}"))
+    return parts.select(exprs)
+
+
+def _marks(row: dict[str, Any], single_point: int, groups: dict[str, Any]) -> MarkCounts:
+    """The shapes of a column's distinct other entries (``row``) and of its plain entries
+    (``single_point``, ``groups``) together: counts of distinct entries plus counts of rows,
+    as every decision asks only whether a count of entries of one shape but not of another
+    is positive."""
+    counts = {shape: int(row[shape] or 0) for shape in _SHAPES}
+    counts["single_point"] += single_point
+    for shape in ("point_groups", "ambiguous_point"):
+        counts[shape] += int(groups[shape] or 0)
+    examples = [e for e in (row["example_point"], groups["example_point"]) if e is not None]
+    return MarkCounts(counts, row["example_comma"], min(examples, default=None))
+
+
+def _plain_exprs(name: str, fast: bool) -> list[pl.Expr]:
+    """A column's entries (``t <name>``), its plain numbers (``f <name>``, null for the other
+    entries) and where the first point of each entry is (``dot <name>``). ``fast`` False: no
+    entry is taken as plain."""
+    text = pl.col(f"t {name}")
+    number = pl.col(f"n {name}") if fast else pl.lit(None, pl.Float64)
+    cast = pl.when(number.is_not_null()).then(text)  # the other entries are not looked at
+    return [
+        text,
+        pl.when(cast.str.contains(_PLAIN)).then(number).alias(f"f {name}"),
+        text.str.find(".", literal=True).alias(f"dot {name}"),
+    ]
+
+
+def _split_exprs(name: str) -> list[pl.Expr]:
+    """For one column (see ``_plain_exprs``): how many plain numbers hold a point, the plain
+    numbers that could have the shape of point groups (``_groups`` tells), how many entries
+    are plain, and the distinct other entries.
+
+    A plain number is its own number part, and it can have only three of ``_SHAPES`` (the
+    others need a comma or a space): single point, exactly when it holds a point (``_PLAIN``
+    puts digits after it); point groups, only when its point comes after a sign and 1 to 3
+    digits, then 3 digits and the end or an exponent (2 characters or more); and like 1.234,
+    a shape within point groups."""
+    text, plain, dot = pl.col(f"t {name}"), pl.col(f"f {name}").is_not_null(), pl.col(f"dot {name}")
+    after = text.str.len_bytes() - dot
+    maybe = plain & (dot <= 4) & ((after == 4) | (after >= 6))
+    return [
+        (plain & dot.is_not_null()).sum().alias(f"single_point {name}"),
+        text.filter(maybe).implode().alias(f"maybe {name}"),
+        plain.sum().alias(f"plain {name}"),
+        text.filter(~plain).unique().implode().alias(f"others {name}"),
+    ]
+
+
+def _groups(maybe: pl.Series) -> pl.LazyFrame:
+    """Among plain numbers (``maybe``, see ``_split_exprs``): how many have the shape of point
+    groups, how many are like 1.234 (a shape within it), and the least of those."""
+    text, ambiguous = pl.col("text"), pl.col("ambiguous")
+    grouped = pl.LazyFrame([maybe.alias("text")]).filter(text.str.contains(_SHAPES["point_groups"]))
+    return grouped.with_columns(
+        text.str.contains(_SHAPES["ambiguous_point"]).alias("ambiguous")
+    ).select(
+        pl.len().alias("point_groups"),
+        ambiguous.sum().alias("ambiguous_point"),
+        text.filter(ambiguous).min().alias("example_point"),
+    )
+
+
+def _split(paired: pl.DataFrame, columns: Sequence[str], fast: bool) -> dict[str, _Split]:
+    """Each column's plain numbers and its distinct other entries, in two passes over all
+    the columns, then the other entries' parts and shapes, the columns in parallel
+    (``fast`` False: no entry is taken as plain)."""
+    if not columns:
+        return {}
+    work = paired.select(expr for name in columns for expr in _plain_exprs(name, fast))
+    sums = work.select(expr for name in columns for expr in _split_exprs(name))
+    row = sums.select(pl.exclude(pl.List)).row(0, named=True)
+    parts = pl.collect_all(
+        _parts(sums.lazy().select(pl.col(f"others {name}").explode().alias("text")))
+        for name in columns
+    )
+    shapes = pl.collect_all(
+        [
+            *(_mark_counts(others.lazy()) for others in parts),
+            *(_groups(sums[f"maybe {name}"][0]) for name in columns),
+        ]
+    )
     result = {}
-    for name, frame in uniques.items():
-        num = pl.col("p").struct.field("num")
-        exprs = [num.str.contains(p).sum().alias(shape) for shape, p in _SHAPES.items()]
-        for mark in ("comma", "point"):
-            ambiguous = num.filter(num.str.contains(_SHAPES[f"ambiguous_{mark}"]))
-            exprs.append(ambiguous.min().alias(f"example_{mark}"))
-        row = frame.select(exprs).row(0, named=True)
-        shapes = {shape: int(row[shape] or 0) for shape in _SHAPES}
-        result[name] = MarkCounts(shapes, row["example_comma"], row["example_point"])
+    for i, (name, others) in enumerate(zip(columns, parts, strict=True)):
+        plain = int(row[f"plain {name}"])
+        single = int(row[f"single_point {name}"])
+        groups = shapes[len(columns) + i].row(0, named=True)
+        marks = _marks(shapes[i].row(0, named=True), single, groups)
+        result[name] = _Split(work[f"f {name}"] if plain else None, plain, others, marks)
     return result
 
 
-def _units(entries: pl.DataFrame) -> tuple[tuple[str, ...], int]:
-    """The distinct units (first spelling of each, case-insensitively) and the count of
-    value entries without a unit (when there are units)."""
-    spellings: dict[str, str] = {}  # the most frequent spelling of each unit
-    for spelling, _ in _by_count(entries["unit"].drop_nulls(), limit=None):
+def _full_split(texts: pl.DataFrame, name: str, marks: MarkCounts) -> _Split:
+    """Every distinct entry of a column, for the full rules."""
+    others = _parts(texts.lazy().select(pl.col(name).unique().alias("text")))
+    return _Split(None, 0, others.collect(), marks)
+
+
+def _units(read: pl.DataFrame, plain: int) -> tuple[tuple[str, ...], int]:
+    """The distinct units (the most frequent spelling of each, case-insensitively) and the
+    count of value entries without a unit (when there are units)."""
+    spelled = (
+        read.filter(pl.col("unit").is_not_null())
+        .group_by("unit")
+        .agg(pl.col("n").sum())
+        .sort(["n", "unit"], descending=[True, False])
+    )
+    spellings: dict[str, str] = {}
+    for spelling, _ in spelled.rows():
         spellings.setdefault(spelling.casefold(), spelling)
     if not spellings:
         return (), 0
-    bare = entries.select((pl.col("value").is_not_null() & pl.col("unit").is_null()).sum())
-    return tuple(sorted(spellings.values())), int(bare.item())
+    bare = read.filter(pl.col("value").is_not_null() & pl.col("unit").is_null())["n"].sum()
+    return tuple(sorted(spellings.values())), plain + int(bare)
 
 
-def _by_count(values: pl.Series, limit: int | None) -> tuple[tuple[str, int], ...]:
-    """Distinct values with their counts, most frequent first (ties in text order)."""
-    counts = values.value_counts(name="n").sort(["n", values.name], descending=[True, False])
-    rows = counts.rows() if limit is None else counts.head(limit).rows()
-    return tuple((str(text), int(n)) for text, n in rows)
+def _examples(read: pl.DataFrame, limit: int = 4) -> tuple[tuple[str, int], ...]:
+    """The unparsed entries with their counts, most frequent first (ties in text order)."""
+    unparsed = read.filter(pl.col("kind") == UNPARSED)
+    rows = unparsed.sort(["n", "text"], descending=[True, False]).head(limit)
+    return tuple((str(text), int(n)) for text, n in rows.select("text", "n").rows())
 
 
-def _examples(entries: pl.DataFrame, limit: int = 4) -> tuple[tuple[str, int], ...]:
-    return _by_count(entries.filter(pl.col("kind") == UNPARSED)["text"], limit)
-
-
-def _labels_as_text(read: pl.DataFrame) -> pl.DataFrame:
+def _labels_as_text(read: pl.LazyFrame) -> pl.LazyFrame:
     """Ordinals (1st, 2nd, 3rd, 4th) and entries like 1A, 1B, 2A (a number and one letter
-    that differs between entries: plot or sample codes) are labels, not numbers in units or
-    with a qualifier: read them as text."""
-    units = read["unit"].drop_nulls().str.to_lowercase().unique()
-    ordinal = pl.col("text").str.contains(_ORDINAL)
-    if units.len() < 2 or not units.str.contains(r"^[a-z]$").all():
-        coded = ordinal
-    else:
-        coded = ordinal | pl.col("unit").is_not_null()
+    that differs between entries of a column: plot or sample codes) are labels, not numbers
+    in units or with a qualifier: read them as text. ``read`` holds the distinct entries of
+    several columns, told apart by ``column``."""
+    units = pl.col("unit").str.to_lowercase().drop_nulls()
+    letters = ((units.n_unique() >= 2) & units.str.contains(r"^[a-z]$").all()).over("column")
+    coded = pl.col("text").str.contains(_ORDINAL) | (letters & pl.col("unit").is_not_null())
     return read.with_columns(
         pl.when(coded).then(None).otherwise(pl.col("value")).alias("value"),
         pl.when(coded).then(UNPARSED).otherwise(pl.col("kind")).cast(pl.UInt8).alias("kind"),
@@ -440,68 +567,154 @@ def _labels_as_text(read: pl.DataFrame) -> pl.DataFrame:
     )
 
 
-def _read_parsed(
-    texts: pl.DataFrame,
-    unique: pl.DataFrame,
-    mode: Mode,
-    marks: MarkCounts,
-    problem: str | None,
-) -> ParsedColumn:
-    """One column read by the full rules: its distinct entries are read, then mapped back."""
-    name = texts.columns[0]
-    read = _labels_as_text(
-        unique.select("text", _entry(mode, problem is not None).alias("e")).unnest("e")
-    )
-    entries = texts.rename({name: "text"}).join(
-        read, on="text", how="left", nulls_equal=True, maintain_order="left"
-    )
-    kinds = dict(entries["kind"].value_counts().rows())
+def _reading(
+    name: str, height: int, split: _Split, read: pl.DataFrame, mode: Mode, problem: str | None
+) -> ColumnReading:
+    """What reading a column found: from its distinct other entries as read, with how many
+    times each occurs (``n``), and its plain numbers."""
+    kinds = dict(read.group_by("kind").agg(pl.col("n").sum()).rows())
     counts = {kind: int(kinds.get(kind, 0)) for kind in range(7)}
-    units, without_unit = _units(entries)
-    reading = ColumnReading(
+    counts[NUMBER] += split.plain
+    units, without_unit = _units(read, split.plain)
+    return ColumnReading(
         name=name,
-        entries=entries.height - counts[MISSING],
+        entries=height - counts[MISSING],
         numbers=counts[NUMBER],
         censored=counts[CENSORED],
         censored_without_limit=counts[NO_LIMIT],
         above_range=counts[ABOVE],
         estimated=counts[ESTIMATED],
         unparsed=counts[UNPARSED],
-        unparsed_examples=_examples(entries) if counts[UNPARSED] else (),
+        unparsed_examples=_examples(read) if counts[UNPARSED] else (),
         units=units,
         without_unit=without_unit,
         mode=mode,
-        thousands=marks.thousands > 0,
+        thousands=split.marks.thousands > 0,
         problem=problem,
     )
-    censored = (entries["kind"] == CENSORED).alias(name)
-    return ParsedColumn(
-        entries["value"].alias(name),
-        censored,
-        reading,
-        kind=entries["kind"].alias(name),
-        unit=entries["unit"].alias(name),
-    )
+
+
+def _batches(
+    sizes: Sequence[int], keys: Sequence[tuple[Mode, bool]]
+) -> list[tuple[tuple[Mode, bool], list[int]]]:
+    """The columns (by index) grouped by how they are read (``keys``), in batches of about
+    ``_BATCH`` distinct entries (batches are read in parallel; a column is never split)."""
+    batches = []
+    for key in sorted(set(keys)):
+        batch: list[int] = []
+        size = 0
+        for index in (i for i, each in enumerate(keys) if each == key):
+            if batch and size + sizes[index] > _BATCH:
+                batches.append((key, batch))
+                batch, size = [], 0
+            batch.append(index)
+            size += sizes[index]
+        batches.append((key, batch))
+    return batches
+
+
+def _read_others(
+    splits: dict[str, _Split], modes: dict[str, tuple[Mode, str | None]]
+) -> dict[str, pl.DataFrame]:
+    """The distinct other entries of every column read by the full rules under the column's
+    mode (``text``, ``value``, ``kind``, ``unit``)."""
+    names = list(splits)
+    keys = [(modes[name][0], modes[name][1] is not None) for name in names]
+    queries = [
+        _labels_as_text(
+            pl.concat(
+                splits[names[i]].others.with_columns(column=pl.lit(i, pl.UInt32)) for i in batch
+            )
+            .lazy()
+            .select("column", "text", _entry(*key).alias("e"))
+            .unnest("e")
+        )
+        for key, batch in _batches([s.others.height for s in splits.values()], keys)
+    ]
+    labelled = pl.concat(pl.collect_all(queries))
+    groups = labelled.partition_by("column", as_dict=True, include_key=False)
+    empty = labelled.drop("column").clear()
+    return {name: groups.get((i,), empty) for i, name in enumerate(names)}
+
+
+def _positions(
+    texts: pl.DataFrame, splits: dict[str, _Split], reads: dict[str, pl.DataFrame]
+) -> dict[str, pl.DataFrame]:
+    """Per column: the rows of its other entries (``at``) and which of its distinct entries
+    as read each is (``pos``), the columns joined in parallel."""
+    queries = []
+    for name, split in splits.items():
+        rows = pl.DataFrame([texts[name].alias("text")]).with_row_index("at")
+        if split.fast is not None:
+            rows = rows.filter(split.fast.is_null())
+        known = reads[name].select("text").with_row_index("pos")
+        joined = rows.lazy().join(known.lazy(), on="text", how="left", nulls_equal=True)
+        queries.append(joined.select("at", "pos"))
+    return dict(zip(splits, pl.collect_all(queries), strict=True))
+
+
+def _column(
+    name: str, height: int, split: _Split, read: pl.DataFrame, found: pl.DataFrame
+) -> tuple[pl.Series, pl.Series, pl.Series]:
+    """A column's values, kinds and units per entry: a plain number is itself, the other
+    entries (rows ``at``) are their distinct entries as read (rows ``pos`` of ``read``)."""
+    at, pos = found["at"], found["pos"]
+    if split.fast is None:
+        value = pl.repeat(None, height, dtype=pl.Float64, eager=True)
+    else:
+        value = split.fast.clone()
+    value = value.scatter(at, read["value"].gather(pos))
+    kind = pl.repeat(NUMBER, height, dtype=pl.UInt8, eager=True)
+    kind = kind.scatter(at, read["kind"].gather(pos))
+    unit = pl.repeat(None, height, dtype=pl.String, eager=True)
+    if read["unit"].null_count() < read.height:
+        unit = unit.scatter(at, read["unit"].gather(pos))
+    return value.alias(name), kind.alias(name), unit.alias(name)
+
+
+def _read_parsed(
+    texts: pl.DataFrame, splits: dict[str, _Split], decimal: Decimal | None, hint: bool
+) -> dict[str, ParsedColumn]:
+    """The columns read by the full rules: the distinct other entries of each are read, then
+    mapped back onto its rows (plain numbers, read as themselves where the mode allows)."""
+    if not splits:
+        return {}
+    splits = dict(splits)
+    modes = {name: decide_mode(name, split.marks, decimal, hint) for name, split in splits.items()}
+    for name, (mode, problem) in modes.items():
+        if splits[name].fast is not None and mode == "comma" and problem is None:
+            # 1.234 is 1234 with a decimal comma: no entry is read as it casts.
+            splits[name] = _full_split(texts, name, splits[name].marks)
+    reads = _read_others(splits, modes)
+    positions = _positions(texts, splits, reads)
+    result = {}
+    for name, split in splits.items():
+        found = positions[name]
+        counts = np.bincount(found["pos"].to_numpy(), minlength=reads[name].height)
+        read = reads[name].with_columns(n=pl.Series(counts, dtype=pl.Int64))
+        value, kind, unit = _column(name, texts.height, split, read, found)
+        reading = _reading(name, texts.height, split, read, *modes[name])
+        result[name] = ParsedColumn(value, kind == CENSORED, reading, kind=kind, unit=unit)
+    return result
 
 
 def _plain(
-    texts: pl.DataFrame, columns: Sequence[str], counts: dict[str, tuple[int, int]]
+    numbers: pl.DataFrame, columns: Sequence[str], counts: dict[str, tuple[int, int]]
 ) -> dict[str, ParsedColumn]:
     """Columns of plain numbers only (missing words read as null: none is a finite number)."""
-    values = texts.select(
-        pl.when(number.is_finite()).then(number).alias(name)
-        for name in columns
-        for number in [pl.col(name).cast(pl.Float64, strict=False)]
-    )
-    never = pl.repeat(False, texts.height, dtype=pl.Boolean, eager=True)
-    no_unit = pl.repeat(None, texts.height, dtype=pl.String, eager=True)
+    never = pl.repeat(False, numbers.height, dtype=pl.Boolean, eager=True)
+    no_unit = pl.repeat(None, numbers.height, dtype=pl.String, eager=True)
     return {
         name: ParsedColumn(
-            values[name],
+            numbers[name],
             never.alias(name),
             ColumnReading(name, entries=counts[name][0], numbers=counts[name][0]),
-            kind=values.select(
-                pl.when(pl.col(name).is_null()).then(MISSING).otherwise(NUMBER).cast(pl.UInt8)
+            kind=numbers.select(
+                pl.when(pl.col(name).is_null())
+                .then(MISSING)
+                .otherwise(NUMBER)
+                .cast(pl.UInt8)
+                .alias(name)
             ).to_series(),
             unit=no_unit.alias(name),
         )
@@ -538,22 +751,18 @@ def read_columns(
     cannot be read for sure carries its reason in ``reading.problem`` (and mixed units in
     ``reading.unit_problem``); the caller refuses it only if it is used as an outcome."""
     texts = frame.select(text_of(c).alias(c) for c in columns)
-    counts = _plain_counts(texts)
+    numbers = _numbers(texts)
+    paired = _side_by_side(texts, numbers, columns)
+    counts = _plain_counts(paired, columns)
     # Columns of plain numbers only take the fast path (unless decimal commas are forced).
     plain = [c for c in columns if decimal != "comma" and counts[c][0] == counts[c][1]]
     parsed = [c for c in columns if c not in plain]
-    uniques = _unique_parts(texts, parsed)
-    marks = _mark_counts(uniques)
-    hint = comma_hint or _shows_decimal_commas(marks.values())
+    splits = _split(paired, parsed, decimal != "comma")
+    hint = comma_hint or _shows_decimal_commas(s.marks for s in splits.values())
     if hint and decimal is None:
         # Under a decimal-comma hint, 1.234 among plain numbers is read by the full rules.
         moved = _doubtful_plain(texts, plain)
         plain = [c for c in plain if c not in moved]
-        uniques |= _unique_parts(texts, moved)
-        marks |= _mark_counts({c: uniques[c] for c in moved})
-        parsed += moved
-    result = _plain(texts, plain, counts)
-    for name in parsed:
-        mode, problem = decide_mode(name, marks[name], decimal, hint)
-        result[name] = _read_parsed(texts.select(name), uniques[name], mode, marks[name], problem)
+        splits |= _split(paired, moved, True)
+    result = _plain(numbers, plain, counts) | _read_parsed(texts, splits, decimal, hint)
     return {c: result[c] for c in columns}
