@@ -296,3 +296,29 @@ async def test_escape_in_the_note_editor_asks_only_about_changes(tmp_path: Path)
         await pilot.press("x", "backspace")
         await pilot.press("escape")
         await closed()
+
+
+async def test_tab_never_lands_in_the_filter_line(tmp_path: Path) -> None:
+    """Tab moves between the panes only: the filter line takes keys after "/" (or a click),
+    so command keys typed after a stray tab act on the list instead of filling the filter.
+    After enter the filter is left out of the tab order again."""
+    async with running(tmp_path) as (app, pilot):
+        screen = app.screen
+        line = screen.query_one("#filter", Input)
+        for _ in range(6):
+            await pilot.press("tab")
+            await pilot.pause()
+            assert app.focused is not line
+        await pilot.press("slash")
+        await pilot.pause()
+        assert app.focused is line
+        await pilot.press("c", "o", "p", "enter")
+        await pilot.pause()
+        assert app.focused is not line and line.value == "cop"
+        for _ in range(6):
+            await pilot.press("tab")
+            await pilot.pause()
+            assert app.focused is not line
+        await pilot.click("#filter")
+        await pilot.pause()
+        assert app.focused is line

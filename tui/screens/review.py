@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import Literal, get_args
 
 import polars as pl
-from textual import on, work
+from textual import events, on, work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.css.query import NoMatches
@@ -166,7 +166,11 @@ class ReviewScreen(Screen[None]):
     # -- layout and the view ---------------------------------------------------------------
     def compose(self) -> ComposeResult:
         yield StatusLine(id="status")
-        yield Input(placeholder=FILTER_HINT, id="filter")
+        # The filter line takes keys only after "/" (not by tab): a stray tab would
+        # otherwise send the command keys that follow into it.
+        line = Input(placeholder=FILTER_HINT, id="filter")
+        line.can_focus = False
+        yield line
         yield ComparisonList(id="list")
         settings = self.session.result.settings
         move = self._move_cursor
@@ -364,7 +368,18 @@ class ReviewScreen(Screen[None]):
     def action_focus_filter(self) -> None:
         # Focus at once, not on the next idle (Widget.focus): keys typed right after "/"
         # must land in the filter, not in the list.
-        self.set_focus(self.query_one("#filter", Input))
+        line = self.query_one("#filter", Input)
+        line.can_focus = True
+        self.set_focus(line)
+
+    @on(events.Click, "#filter")
+    def _filter_clicked(self) -> None:
+        self.action_focus_filter()
+
+    def on_descendant_blur(self, event: events.DescendantBlur) -> None:
+        """The filter line leaves the tab order again once it loses focus."""
+        if event.widget.id == "filter":
+            event.widget.can_focus = False
 
     # -- reviewing -------------------------------------------------------------------------
     def _review(self, change: Callable[[str], object], again: str) -> None:
