@@ -597,3 +597,22 @@ async def test_summary_table_opens_without_cross_checks_or_charts(tmp_path: Path
             for _, binding, enabled, _ in app.active_bindings.values()
             if binding.action in ("robust", "robust_shown")
         )
+
+
+@pytest.mark.parametrize(
+    ("done", "total", "elapsed", "expected"),
+    [
+        (193, 1860, 21.0, " · about 3 min left"),  # the pace so far: 21/193 s per row
+        (10, 100, 5.0, " · about 40 s left"),
+        (2, 100, 5.0, ""),  # too few done to have a pace
+        (10, 100, 1.0, ""),  # too early
+        (50, 100, 3.0, ""),  # under 5 seconds left
+        (100, 100, 9.0, ""),
+    ],
+)
+def test_cross_checks_say_the_time_left(done, total, elapsed, expected):
+    """The progress notice of a long run of cross-checks says about how long is left, from
+    the pace so far (plain arithmetic: elapsed / done x the rows left)."""
+    from foldsift.tui.screens.review import time_left
+
+    assert time_left(done, total, elapsed) == expected

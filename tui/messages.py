@@ -38,6 +38,8 @@ class CrossCheckProgress(Message):
     done: int
     total: int
     finished: bool = False
+    #: Seconds since the checks started (for the time left).
+    elapsed: float = 0.0
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, CrossCheckProgress) and not message.finished

@@ -14,6 +14,7 @@ typed is kept as a draft at every pause and restored when the editor next opens 
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
 from contextlib import suppress
 from dataclasses import dataclass
@@ -112,6 +113,19 @@ def conflict_text(current: Review | None, again: str) -> str:
         f"not saved: another session {what}; now {review_state(current)} — press {again}"
         " again to apply your change"
     )
+
+
+def time_left(done: int, total: int, elapsed: float) -> str:
+    """ " · about 3 min left" from the pace so far; nothing before there is a pace to go by
+    (3 done and 2 seconds) or when the rest takes under 5 seconds."""
+    if done < 3 or elapsed < 2 or done >= total:
+        return ""
+    seconds = elapsed / done * (total - done)
+    if seconds < 5:
+        return ""
+    if seconds < 90:
+        return f" · about {round(seconds, -1) or 5:.0f} s left"
+    return f" · about {round(seconds / 60):.0f} min left"
 
 
 @dataclass(frozen=True)
@@ -571,6 +585,7 @@ class ReviewScreen(Screen[None]):
         """Compute in this thread, record on the main thread (messages)."""
         worker = get_current_worker()
         done = 0
+        start = time.monotonic()
         for job in jobs:
             if worker.is_cancelled:
                 break
@@ -582,7 +597,7 @@ class ReviewScreen(Screen[None]):
                 continue
             done += 1
             self.post_message(CrossCheckDone(key, check))
-            self.post_message(CrossCheckProgress(done, len(jobs)))
+            self.post_message(CrossCheckProgress(done, len(jobs), elapsed=time.monotonic() - start))
         self.post_message(CrossCheckProgress(done, len(jobs), finished=True))
 
     @on(CrossCheckDone)
@@ -606,7 +621,8 @@ class ReviewScreen(Screen[None]):
         else:
             filled = round(20 * done / max(total, 1))
             bar = "#" * filled + "." * (20 - filled)
-            self.notice = Notice(f"cross-checks [{bar}] {done}/{total} · escape stops")
+            left = time_left(done, total, message.elapsed)
+            self.notice = Notice(f"cross-checks [{bar}] {done}/{total}{left} · escape stops")
 
     # -- export ----------------------------------------------------------------------------
     def action_export(self) -> None:
