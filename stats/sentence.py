@@ -340,7 +340,12 @@ def finding(row: ComparisonRow) -> str:
         return _not_comparable(row, outcome, group_a, group_b)
     basis = _basis(row)
     median = says_median(row)
-    what = "ratio of geometric means, logs symmetric; " if median else ""
+    what = (
+        "estimated by the ratio of geometric means, which is the ratio of medians when each "
+        "group's logged values are symmetric; "
+        if median
+        else ""
+    )
     detail = (
         f"{what}{level_text(row['confidence'])} CI {interval_words(row['ci_low'], row['ci_high'])}; "
         f"{basis}, {p_text(row['p_value'], 'p')}, {p_text(row['q_bh'], 'q')}"

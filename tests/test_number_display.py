@@ -297,7 +297,8 @@ def test_sentence_states_the_gm_ratio_and_its_ci(tmp_path: Path) -> None:
     low, high = welch_ci(a, b)
     expected = (
         f"zinc (mg/kg) in site b is {fmt.ratio_words(gm_ratio(a, b))}× that in site a"
-        f" (ratio of geometric means, logs symmetric;"
+        " (estimated by the ratio of geometric means, which is the ratio of medians when"
+        " each group's logged values are symmetric;"
         f" 95% CI {fmt.interval_words(low, high)};"
     )
     assert expected in text, text
