@@ -443,9 +443,23 @@ def _interval_note(name: str, values: pl.Series) -> str | None:
 
 
 def _measured(name: str, values: pl.Series) -> _Guess:
-    """An outcome, unless the values are on an interval scale."""
-    why = _interval_note(name, values)
+    """An outcome, unless the values are on an interval scale or all the same."""
+    why = _interval_note(name, values) or _constant_note(name, values)
     return _Guess("outcome") if why is None else _Guess(None, why)
+
+
+def _constant_note(name: str, values: pl.Series) -> str | None:
+    """Why a column holding one value only (a flag that never changes, a fixed setting) is
+    not an outcome: every comparison would have no spread."""
+    value = values.cast(pl.Float64)
+    value = value.filter(value.is_finite())
+    low, high = value.min(), value.max()
+    if value.len() < 2 or not isinstance(low, float) or low != high:
+        return None
+    return (
+        f"{name}: left out of the outcomes: every value is {low:g}, so no comparison has "
+        "anything to compare; name it with --outcome to keep it"
+    )
 
 
 def _looks_like_dates(frame: pl.DataFrame, name: str) -> bool:
@@ -638,7 +652,7 @@ def _check_roles(
         )
     if not outcomes:
         passed = (
-            f" (guessing left out {', '.join(left_out)}: identifiers, years or values below zero)"
+            f" (guessing left out {', '.join(left_out)}: identifiers, years, values below zero or constants)"
             if left_out
             else ""
         )

@@ -154,7 +154,11 @@ def test_running_sample_numbers_are_neither_groupings_nor_outcomes(name):
     """A whole-number column with one value per row that counts 1, 2, 3, … (or is named like
     an identifier) numbers the samples; comparing it would be meaningless (common practice)."""
     frame = pl.DataFrame(
-        {name: [str(i) for i in range(1, 9)], "site": list("aaaabbbb"), "v": ["1.5"] * 8}
+        {
+            name: [str(i) for i in range(1, 9)],
+            "site": list("aaaabbbb"),
+            "v": [f"{1.5 + i}" for i in range(8)],
+        }
     )
     table = load_table(frame=frame)
     assert name not in table.groupings and name not in table.outcomes

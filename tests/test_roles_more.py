@@ -280,3 +280,36 @@ def test_when_guessing_leaves_no_outcome_the_message_names_what_it_left_out(tmp_
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1
     assert "no numeric outcome columns found (guessing left out wt.loss" in err
+
+
+# -- constants --------------------------------------------------------------------------------
+
+
+def test_actg175_constant_column_is_not_an_outcome():
+    """ACTG 175's zprior is 1 on every row (checked on the file): no comparison of it has
+    any spread, so guessing leaves it out with a note; naming it keeps it."""
+    path = _lifelines_file("ACTG175.csv")
+    assert pl.read_csv(path)["zprior"].unique().to_list() == [1]  # the published layout
+    table = load_table(path)
+    assert "zprior" not in table.outcomes
+    (note,) = _notes_on(table, "zprior")
+    assert "every value is 1" in note
+    named = load_table(path, groupings=["treat"], outcomes=["zprior", "cd40"])
+    assert named.outcomes == ("zprior", "cd40")
+
+
+def test_a_constant_measurement_among_varying_ones():
+    """A fixed setting written as a number (the same 2.5 on every row, a few missing) is
+    left out; a column with two values stays (our rule: constant means one finite value)."""
+    rng = np.random.default_rng(3)
+    frame = pl.DataFrame(
+        {
+            "site": ["a", "b"] * 20,
+            "dilution": [2.5] * 38 + [None, None],
+            "lead": np.exp(rng.normal(size=40)),
+            "two": [1.5] * 39 + [3.0],
+        }
+    )
+    table = load_table(frame=frame)
+    assert table.outcomes == ("lead", "two")
+    assert _notes_on(table, "dilution")
