@@ -36,7 +36,10 @@ class ValuePolicy:
         choose(self.nonpositive, NONPOSITIVE_POLICIES, "non-positive policy")
         choose(self.censored, CENSORED_POLICIES, "censored policy")
 
-    def describe(self) -> str:
+    def describe(self, nonpositive: bool = True, censored: bool = True) -> str:
+        """The policies in words; only the parts that applied when told which found entries
+        (``nonpositive``: some zero or negative value; ``censored``: some below-detection or
+        above-range entry)."""
         words = {
             "mle": "fitted by censored maximum likelihood",
             "exclude": "left out",
@@ -44,10 +47,11 @@ class ValuePolicy:
             "half-dl": "replaced by half the detection limit",
             "dl-root2": "replaced by the detection limit divided by sqrt(2)",
         }
-        return (
-            f"zero/negative values {words[self.nonpositive]}; "
-            f"below-detection entries {words[self.censored]}"
-        )
+        parts = [
+            *([f"zero/negative values {words[self.nonpositive]}"] if nonpositive else []),
+            *([f"below-detection entries {words[self.censored]}"] if censored else []),
+        ]
+        return "; ".join(parts) or "no zero, negative or below-detection entries"
 
 
 def apply_policy(

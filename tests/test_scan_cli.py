@@ -315,3 +315,18 @@ def test_a_grouping_without_the_reference_level_is_noted(tmp_path, capsys):
     rows = pl.read_csv(out)
     assert set(rows.filter(pl.col("grouping") == "field")["level_a"]) == {"ash"}
     assert set(rows.filter(pl.col("grouping") == "season")["level_a"]) == {"spring"}
+
+
+def test_the_summary_line_names_only_the_policies_that_met_entries(tmp_path, capsys):
+    """Clean positive numbers: the line says there was nothing to leave out or fit, rather
+    than naming the censored fit for data that has no below-detection entry."""
+    clean = write(tmp_path / "clean.csv", "site,lead\na,1.5\na,2.5\nb,3.5\nb,4.5\n")
+    assert main(["scan", str(clean), "--out", str(tmp_path / "c.csv")]) == 0
+    err = capsys.readouterr().err
+    assert "no zero, negative or below-detection entries" in err
+    assert "maximum likelihood" not in err
+    coded = write(tmp_path / "coded.csv", "site,lead\na,<1\na,2.5\na,3\nb,3.5\nb,4.5\nb,0\n")
+    assert main(["scan", str(coded), "--out", str(tmp_path / "d.csv")]) == 0
+    err = capsys.readouterr().err
+    assert "zero/negative values left out" in err
+    assert "below-detection entries fitted by censored maximum likelihood" in err

@@ -411,7 +411,7 @@ def _describe(result: ScanResult) -> None:
     print(
         f"foldsift: {source.name}: {len(source.groupings)} grouping column(s) "
         f"({', '.join(source.groupings)}), {len(source.outcomes)} outcome(s), "
-        f"{result.comparisons.height} comparisons; {result.settings.policy.describe()}",
+        f"{result.comparisons.height} comparisons; {_policies_applied(result)}",
         file=sys.stderr,
     )
     for name, count in source.unparsed.items():
@@ -422,6 +422,19 @@ def _describe(result: ScanResult) -> None:
     for note in source.notes:
         if not note.startswith("read as a long table"):
             print(f"foldsift: note: {note}", file=sys.stderr)
+
+
+def _policies_applied(result: ScanResult) -> str:
+    """The value policies that met entries in this data, in words."""
+    summaries = result.summaries
+    found = {
+        name: bool(summaries[name].fill_null(0).sum() > 0) if name in summaries.columns else True
+        for name in ("n_excluded", "n_substituted", "n_censored", "n_above_range")
+    }
+    censored = found["n_censored"] or found["n_above_range"]
+    # Zero/negative values are the excluded or substituted entries that were not censored.
+    nonpositive = found["n_excluded"] or found["n_substituted"]
+    return result.settings.policy.describe(nonpositive=nonpositive, censored=censored)
 
 
 def command_scan(args: argparse.Namespace) -> int:
