@@ -737,6 +737,11 @@ def _shows_decimal_commas(marks: Iterable[MarkCounts]) -> bool:
     return any(m.comma_evidence > 0 and m.point_evidence == 0 for m in marks)
 
 
+#: Columns read at a time: the working copies of a batch (trimmed text, casts, masks) are what
+#: reading adds to the table's own memory.
+READ_BATCH = 16
+
+
 def read_columns(
     frame: pl.DataFrame,
     columns: Sequence[str],
@@ -749,7 +754,29 @@ def read_columns(
     ``comma_hint`` says the file hints at decimal commas (it is separated by ``;``); a
     column that shows decimal commas gives the same hint for the others. A column that
     cannot be read for sure carries its reason in ``reading.problem`` (and mixed units in
-    ``reading.unit_problem``); the caller refuses it only if it is used as an outcome."""
+    ``reading.unit_problem``); the caller refuses it only if it is used as an outcome.
+
+    Columns are read ``READ_BATCH`` at a time; when a batch first shows decimal commas, the
+    batches before it are read again under that hint, so every column is read as if all
+    were read together."""
+    batches = [list(columns[i : i + READ_BATCH]) for i in range(0, len(columns), READ_BATCH)]
+    result: dict[str, ParsedColumn] = {}
+    hint = comma_hint
+    for index, batch in enumerate(batches):
+        part, shows_commas = _read_batch(frame, batch, decimal, hint)
+        if shows_commas and not hint:
+            hint = True
+            for earlier in batches[:index]:
+                result |= _read_batch(frame, earlier, decimal, hint)[0]
+        result |= part
+    return {c: result[c] for c in columns}
+
+
+def _read_batch(
+    frame: pl.DataFrame, columns: Sequence[str], decimal: Decimal | None, comma_hint: bool
+) -> tuple[dict[str, ParsedColumn], bool]:
+    """Some columns read by the rules (``read_columns``), and whether one shows decimal
+    commas."""
     texts = frame.select(text_of(c).alias(c) for c in columns)
     numbers = _numbers(texts)
     paired = _side_by_side(texts, numbers, columns)
@@ -758,11 +785,12 @@ def read_columns(
     plain = [c for c in columns if decimal != "comma" and counts[c][0] == counts[c][1]]
     parsed = [c for c in columns if c not in plain]
     splits = _split(paired, parsed, decimal != "comma")
-    hint = comma_hint or _shows_decimal_commas(s.marks for s in splits.values())
+    shows_commas = _shows_decimal_commas(s.marks for s in splits.values())
+    hint = comma_hint or shows_commas
     if hint and decimal is None:
         # Under a decimal-comma hint, 1.234 among plain numbers is read by the full rules.
         moved = _doubtful_plain(texts, plain)
         plain = [c for c in plain if c not in moved]
         splits |= _split(paired, moved, True)
     result = _plain(numbers, plain, counts) | _read_parsed(texts, splits, decimal, hint)
-    return {c: result[c] for c in columns}
+    return result, shows_commas

@@ -360,3 +360,22 @@ def test_below_detection_and_missing_words_in_any_case():
     assert column.kind.to_list() == kinds
     assert column.reading.censored_without_limit == len(below)
     _assert_same(frame)
+
+
+@pytest.mark.parametrize("batch", [1, 3, 16])
+def test_columns_read_in_batches_as_if_read_together(monkeypatch, batch):
+    """Columns are read a batch at a time; a column that shows decimal commas in a later
+    batch still makes ``1.234`` in an earlier one doubtful (the documented hint), exactly as
+    when every column is read at once. Against the entry-by-entry reference."""
+    columns: dict[str, list[str | None]] = {
+        f"p{j:02d}": [f"{j + 1}.{k}5" for k in range(6)] for j in range(20)
+    }
+    columns["p03"] = ["1.234", "2.5", "3.75", "<0.5", "4.1", "5"]  # could be 1234 under commas
+    columns["p07"] = ["1.234", "2.345", "3.456", "4.567", "5.678", "6.789"]  # only ambiguous
+    columns["z_last"] = ["12,5", "13,25", "<0,5", "14,75", "1,5", "2,25"]  # decimal commas
+    frame = pl.DataFrame(columns)
+    monkeypatch.setattr(entries, "READ_BATCH", batch)
+    _assert_same(frame)
+    together = read_columns(frame, frame.columns)
+    assert together["p07"].reading.problem is not None  # doubtful under the commas' hint
+    assert together["z_last"].reading.mode == "comma"
