@@ -336,6 +336,10 @@ def _figures(
     )
 
 
+#: Outcomes whose censored figures are aggregated together (``GroupEntries.figures``).
+CENSORED_BATCH = 8
+
+
 class GroupEntries:
     """The entries of every group of the outcomes with censored entries: detected values,
     limits of below-detection entries and (under ``mle``) above-range entries, each flagged.
@@ -363,10 +367,17 @@ class GroupEntries:
         the fit, median and limit figures are filled for groups that hold such an entry."""
         if not self.outcomes or not self._specs:
             return pl.DataFrame(schema=CENSORED_SCHEMA)
+        # A batch of outcomes at a time: the prepared columns and the per-group sorting of a
+        # batch are the working memory, not the table's worth of them.
+        batches = [
+            self.outcomes[start : start + CENSORED_BATCH]
+            for start in range(0, len(self.outcomes), CENSORED_BATCH)
+        ]
         return pl.concat(
             [
-                _figures(self._frame, spec, self.outcomes, self._names, self.policy)
+                _figures(self._frame, spec, batch, self._names, self.policy)
                 for spec in self._specs
+                for batch in batches
             ]
         )
 

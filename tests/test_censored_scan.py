@@ -722,3 +722,19 @@ def test_rescaling_one_level_multiplies_the_ratio(three_sites, test):
             assert two[name] == pytest.approx(k * one[name], rel=1e-9), name
         assert two["se_log"] == pytest.approx(one["se_log"], rel=1e-9)
         assert two["df"] == pytest.approx(one["df"], rel=1e-9)
+
+
+@pytest.mark.parametrize("batch", [1, 3])
+def test_censored_figures_by_batches_of_outcomes_equal_all_at_once(monkeypatch, batch):
+    """The censored figures are aggregated a few outcomes at a time to bound memory; every
+    figure equals the aggregation of all outcomes together (the demo's censored outcomes,
+    both groupings; the lifelines agreement of the figures is checked above)."""
+    from foldsift.demo.generate import demo_path
+    from foldsift.stats import censored_groups
+
+    table = load_table(demo_path())
+    together = run_scan(table).summaries
+    monkeypatch.setattr(censored_groups, "CENSORED_BATCH", batch)
+    batched = run_scan(table).summaries
+    assert batched.sort(batched.columns[:5]).equals(together.sort(together.columns[:5]))
+    assert together["n_censored"].sum() > 0
