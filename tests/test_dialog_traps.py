@@ -49,12 +49,16 @@ def drawn(widget: Widget) -> str:
 
 
 def drawn_on(choices: ChoiceSet) -> list[str]:
-    """The buttons whose dot is drawn unlike the others' (the chosen one), by id."""
-    styles = {}
+    """The buttons whose dot is drawn unlike the others' (the chosen one), by id: the chosen
+    one is both a filled dot (●, the others ○) and in its own colour."""
+    styles, filled = {}, set()
     for button in choices.query(RadioButton):
-        dot = next(s for s in button.render_line(0) if "●" in s.text)
+        dot = next(s for s in button.render_line(0) if "●" in s.text or "○" in s.text)
         styles[button.id] = dot.style
+        if "●" in dot.text:
+            filled.add(button.id)
     odd = [key for key, style in styles.items() if list(styles.values()).count(style) == 1]
+    assert set(odd) == filled, "the chosen button's shape and colour agree"
     return odd
 
 

@@ -16,6 +16,7 @@ from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.content import Content
 from textual.css.query import NoMatches
 from textual.screen import ModalScreen
 from textual.timer import Timer
@@ -226,6 +227,16 @@ class ChoiceSet(RadioSet):
             buttons[index].value = True
 
 
+class Choice(RadioButton):
+    """A radio button whose choice shows by its shape as well as its colour (● chosen, ○ not),
+    for terminals that show few or no colours."""
+
+    @property
+    def _button(self) -> Content:
+        self.BUTTON_INNER = "●" if self.value else "○"
+        return super()._button
+
+
 @dataclass(frozen=True)
 class ExportChoice:
     """What the export dialog returns."""
@@ -283,7 +294,7 @@ class ExportScreen(ModalScreen[ExportChoice | None]):
                     yield Label("Rows", classes="export-heading")
                     with ChoiceSet(id="export-rows", compact=True):
                         for which in SELECTIONS:
-                            yield RadioButton(
+                            yield Choice(
                                 f"{which} ({self._counts[which]})",
                                 value=which == first.rows,
                                 id=f"rows-{which}",
@@ -292,7 +303,7 @@ class ExportScreen(ModalScreen[ExportChoice | None]):
                     yield Label("Columns", classes="export-heading")
                     with ChoiceSet(id="export-columns", compact=True):
                         for columns in COLUMN_SETS:
-                            yield RadioButton(
+                            yield Choice(
                                 self.COLUMN_LABELS[columns],
                                 value=columns == first.columns,
                                 id=f"columns-{columns}",
