@@ -55,7 +55,7 @@ MEDIAN = Mark("┃", "median", "median")
 GM_AT_MEDIAN = Mark("◈", "GM=median", "GM and median in one cell")
 MIDDLE_HALF = Mark("━", "IQR", "middle half")
 RANGE = Mark("╌", "range", "range")
-LIMIT = Mark("◀", "DL", "detection limit")
+LIMIT = Mark("<", "DL", "detection limit (as in a <0.5 entry)")
 #: Every mark, in the legend's order.
 MARKS = (GM, MEDIAN, GM_AT_MEDIAN, MIDDLE_HALF, RANGE, LIMIT)
 _STRONG = {GM.glyph, MEDIAN.glyph, GM_AT_MEDIAN.glyph, LIMIT.glyph}
