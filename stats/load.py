@@ -492,8 +492,32 @@ def _text_role(frame: pl.DataFrame, name: str, parsed: ParsedColumn, distinct: i
     if distinct > MAX_INTEGER_GROUP_LEVELS and _looks_like_dates(frame, name):
         return _Guess(None)
     if 2 <= distinct <= MAX_GROUP_LEVELS and distinct < frame.height:
-        return _Guess("grouping")
+        why = _unit_names(frame, name, distinct)
+        return _Guess("grouping") if why is None else _Guess(None, why)
     return _Guess(None)
+
+
+#: Our rule for labels that name the units measured (plots, wells, patients), not groups to
+#: compare: at least this many levels, and at most 2 rows for most of them — comparing every
+#: pair of such levels would be hundreds of comparisons of one or two values each.
+UNIT_NAME_LEVELS = 10
+
+
+def _unit_names(frame: pl.DataFrame, name: str, distinct: int) -> str | None:
+    """Why a text column of labels looks like the names of the units measured (None when it
+    looks like groups)."""
+    if distinct < UNIT_NAME_LEVELS:
+        return None
+    text = text_of(name)
+    sizes = frame.select(text.filter(~missing_of(text)).value_counts(sort=False))
+    median = sizes.to_series().struct.field("count").median()
+    if not isinstance(median, (int, float)) or median > 2:
+        return None
+    return (
+        f"{name}: not taken as a grouping: {distinct} labels with at most 2 rows for most of "
+        "them, like the names of the units measured; name it with --pair-by to compare other "
+        "levels within each unit, or with --group to compare its labels"
+    )
 
 
 def _typed_role(frame: pl.DataFrame, name: str, distinct: int) -> _Guess:

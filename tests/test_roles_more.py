@@ -313,3 +313,35 @@ def test_a_constant_measurement_among_varying_ones():
     table = load_table(frame=frame)
     assert table.outcomes == ("lead", "two")
     assert _notes_on(table, "dilution")
+
+
+# -- names of the units measured --------------------------------------------------------------
+
+
+def test_plot_names_are_units_not_a_grouping(tmp_path, capsys):
+    """The demo's plot column names 40 plots, each sampled in two years: guessed as a
+    grouping it gave 780 pairs of plots per outcome, each of two values (our rule: 10 or more
+    labels with at most 2 rows for most of them name units). It is left out with a note
+    pointing to --pair-by; naming it with --group still compares its labels."""
+    path = Path(__file__).resolve().parents[1] / "demo" / "marrowby_plots.csv"
+    sizes = pl.read_csv(path)["plot"].value_counts()["count"]
+    assert sizes.len() == 40 and sizes.median() == 2  # the demo's layout
+    table = load_table(path)
+    assert "plot" not in table.groupings
+    (note,) = [n for n in table.notes if n.startswith("plot: not taken as a grouping")]
+    assert "--pair-by" in note
+    named = load_table(path, groupings=["plot"])
+    assert named.groupings == ("plot",)
+
+
+def test_few_labels_or_larger_groups_stay_groupings():
+    """Nine sites of two rows each, or twelve sites of three rows each, are groups."""
+    rng = np.random.default_rng(5)
+    for labels, rows in ((9, 2), (12, 3)):
+        frame = pl.DataFrame(
+            {
+                "site": [f"s{i:02d}" for i in range(labels) for _ in range(rows)],
+                "lead": np.exp(rng.normal(size=labels * rows)),
+            }
+        )
+        assert load_table(frame=frame).groupings == ("site",), (labels, rows)
